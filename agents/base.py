@@ -1,0 +1,222 @@
+"""The agent contract: the only thing the runner knows about an agent.
+
+An agent is a class with a nested ``Config`` dataclass (its hyperparameters) and five
+methods. The runner owns the environments, the budget, the evaluation protocol and the
+records; the agent only maps observations to actions and learns from the transitions it
+is shown. Everything is batched over ``num_envs`` parallel environments (``num_envs`` is
+1 unless the agent's config says otherwise).
+
+Contract version: :data:`CONTRACT_VERSION`. A change that breaks existing agents bumps it.
+
+Minimal example (a complete, working agent)::
+
+    from dataclasses import dataclass
+    import numpy as np
+    from gymnasium import spaces
+    from agents.base import Agent, Step
+
+    class Uniform(Agent):
+        action_spaces = (spaces.Discrete,)
+
+        @dataclass
+        class Config:
+            gamma: float = 0.99
+            num_envs: int = 1
+
+        def __init__(self, observation_space, action_space, config, seed):
+            super().__init__(observation_space, action_space, config, seed)
+            self.rng = np.random.default_rng(seed)
+
+        def act(self, obs, explore):
+            return self.rng.integers(self.action_space.n, size=len(obs))
+
+        def observe(self, step):
+            return {}
+
+        def state_dict(self):
+            return {"rng": self.rng.bit_generator.state}
+
+        def load_state_dict(self, state):
+            self.rng.bit_generator.state = state["rng"]
+"""
+
+from __future__ import annotations
+
+import abc
+import dataclasses
+from dataclasses import dataclass
+from typing import Any, ClassVar
+
+import numpy as np
+from gymnasium import spaces
+
+CONTRACT_VERSION = 1
+
+
+class ConfigError(ValueError):
+    """A bad setting: names the field and what is allowed. The CLI prints it on one line."""
+
+    def __init__(self, field: str, message: str):
+        super().__init__(f"{field}: {message}")
+        self.field = field
+
+
+@dataclass(frozen=True)
+class Step:
+    """One vectorised environment step, as the agent sees it.
+
+    ``next_obs`` is the true successor observation: where an episode ended this step it is
+    the final observation of that episode (not the reset observation), so an agent can
+    bootstrap from it on truncation. ``reset_obs`` is what the agent acts on next.
+    """
+
+    obs: np.ndarray  # (num_envs, *obs_shape)
+    actions: np.ndarray  # (num_envs, *action_shape)
+    rewards: np.ndarray  # (num_envs,) float, after training-only reward wrappers
+    next_obs: np.ndarray  # (num_envs, *obs_shape), final obs where done
+    terminated: np.ndarray  # (num_envs,) bool: a true terminal state, no bootstrap
+    truncated: np.ndarray  # (num_envs,) bool: cut by a time limit, bootstrap from next_obs
+    env_steps: int  # total training env steps after this step (all envs)
+
+
+class Agent(abc.ABC):
+    """Base class of every agent.
+
+    Subclasses set :attr:`action_spaces` and define a nested ``Config`` dataclass whose
+    fields are the hyperparameters read from ``configs/agent/<name>.yaml``. Two fields have
+    meaning to the runner when present: ``gamma`` (the discount used to report discounted
+    evaluation returns; required) and ``num_envs`` (how many training envs to step in
+    parallel; default 1). ``vector_mode`` ("sync" or "async") picks gymnasium's vector env.
+
+    Randomness: use only generators seeded from ``seed`` (``numpy.random.default_rng``,
+    ``torch.Generator``); never the global python/numpy/torch RNGs. Their states belong in
+    :meth:`state_dict`, which holds only tensors and plain python values (so it loads with
+    ``torch.load(weights_only=True)``).
+    """
+
+    action_spaces: ClassVar[tuple[type[spaces.Space], ...]] = ()
+    Config: ClassVar[type]
+
+    def __init__(
+        self,
+        observation_space: spaces.Space,
+        action_space: spaces.Space,
+        config: Any,
+        seed: int,
+    ):
+        self.observation_space = observation_space
+        self.action_space = action_space
+        self.config = config
+        self.seed = seed
+
+    # -- what the runner calls -------------------------------------------------------
+    @classmethod
+    def supports(cls, action_space: spaces.Space) -> bool:
+        """Whether this agent can act in ``action_space``."""
+        return isinstance(action_space, cls.action_spaces)
+
+    @property
+    def gamma(self) -> float:
+        return float(self.config.gamma)
+
+    @abc.abstractmethod
+    def act(self, obs: np.ndarray, explore: bool) -> np.ndarray:
+        """Actions for a batch of observations. ``explore=False`` asks for the
+        deterministic policy (argmax / mean) used by evaluation by default."""
+
+    @abc.abstractmethod
+    def observe(self, step: Step) -> dict[str, float]:
+        """Learn from one vectorised step. Returns scalars to log (may be empty)."""
+
+    @abc.abstractmethod
+    def state_dict(self) -> dict[str, Any]:
+        """Full training state: networks, optimisers, buffers, schedules, RNG states."""
+
+    @abc.abstractmethod
+    def load_state_dict(self, state: dict[str, Any]) -> None:
+        """Restore what :meth:`state_dict` returned, into a freshly built instance."""
+
+
+def build_config(agent_cls: type[Agent], values: dict[str, Any], prefix: str = "agent") -> Any:
+    """Turn a plain dict into ``agent_cls.Config``, checking names and types.
+
+    Unknown keys and wrong types raise :class:`ConfigError` naming the field and what is
+    allowed; range checks live in each Config's ``__post_init__``.
+    """
+    fields = {f.name: f for f in dataclasses.fields(agent_cls.Config)}
+    unknown = sorted(set(values) - set(fields))
+    if unknown:
+        raise ConfigError(
+            f"{prefix}.{unknown[0]}", f"unknown option (allowed: {', '.join(sorted(fields))})"
+        )
+    hints = _resolved_hints(agent_cls.Config)
+    checked = {}
+    for name, value in values.items():
+        checked[name] = check_type(f"{prefix}.{name}", value, hints[name])
+    try:
+        return agent_cls.Config(**checked)
+    except ConfigError as err:
+        if not err.field.startswith(prefix + "."):
+            raise ConfigError(f"{prefix}.{err.field}", str(err).split(": ", 1)[1]) from None
+        raise
+
+
+def _resolved_hints(cls: type) -> dict[str, Any]:
+    import typing
+
+    return typing.get_type_hints(cls)
+
+
+def check_type(field: str, value: Any, hint: Any) -> Any:
+    """Check ``value`` against a simple type hint (bool, int, float, str, list[...],
+    Literal[...], Optional); ints are accepted where floats are expected."""
+    import types
+    import typing
+
+    origin = typing.get_origin(hint)
+    args = typing.get_args(hint)
+    if origin in (typing.Union, types.UnionType):
+        if value is None and type(None) in args:
+            return None
+        inner = [a for a in args if a is not type(None)]
+        errors = []
+        for a in inner:
+            try:
+                return check_type(field, value, a)
+            except ConfigError as err:
+                errors.append(err)
+        raise errors[0]
+    if origin is typing.Literal:
+        if value not in args:
+            raise ConfigError(field, f"got {value!r} (allowed: {', '.join(map(repr, args))})")
+        return value
+    if origin in (list, tuple):
+        if not isinstance(value, (list, tuple)):
+            raise ConfigError(field, f"expected a list, got {value!r}")
+        item = args[0] if args else Any
+        return [check_type(f"{field}[{i}]", v, item) for i, v in enumerate(value)]
+    if hint is Any:
+        return value
+    if hint is bool:
+        if not isinstance(value, bool):
+            raise ConfigError(field, f"expected true or false, got {value!r}")
+        return value
+    if hint is int:
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise ConfigError(field, f"expected an integer, got {value!r}")
+        return value
+    if hint is float:
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise ConfigError(field, f"expected a number, got {value!r}")
+        return float(value)
+    if hint is str:
+        if not isinstance(value, str):
+            raise ConfigError(field, f"expected a string, got {value!r}")
+        return value
+    return value
+
+
+def require(field: str, value: Any, ok: bool, allowed: str) -> None:
+    """Range check for a Config ``__post_init__``: ``require("lr", lr, lr > 0, "> 0")``."""
+    if not ok:
+        raise ConfigError(field, f"must be {allowed} (got {value!r})")

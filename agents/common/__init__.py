@@ -1,0 +1,1 @@
+"""Building blocks shared by every agent: networks, schedules, replay, optimisers, RNG."""

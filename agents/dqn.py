@@ -1,0 +1,176 @@
+"""DQN: Mnih et al. 2015, "Human-level control through deep reinforcement learning".
+
+Replay buffer, target network (hard copies every ``target_update_every`` env steps, or
+Polyak averaging), linear ε-greedy, Huber loss, Adam, gradient-norm clipping; Double DQN
+targets (van Hasselt et al. 2016) with ``double: true``. Only the terminated flag stops
+bootstrapping: a time-limit truncation still bootstraps from the final observation.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import torch
+import torch.nn.functional as F
+from gymnasium import spaces
+
+from agents.base import Agent, Step, require
+from agents.common.networks import NumpyMLP, flat_dim, mlp
+from agents.common.optim import adam, clip_grad_norm
+from agents.common.replay import ReplayBuffer
+from agents.common.rng import generator_states, load_generator_states, make_generators
+from agents.common.schedules import LinearSchedule
+
+
+class DQN(Agent):
+    action_spaces = (spaces.Discrete,)
+
+    @dataclass
+    class Config:
+        gamma: float = 0.99
+        lr: float = 5e-4
+        batch_size: int = 64
+        buffer_size: int = 50_000
+        learning_starts: int = 1_000
+        train_every: int = 1
+        target_update_every: int = 500
+        polyak: float | None = None
+        hidden: list[int] = field(default_factory=lambda: [64, 64])
+        eps_start: float = 1.0
+        eps_end: float = 0.05
+        eps_decay_steps: int = 10_000
+        double: bool = True
+        max_grad_norm: float | None = 10.0
+        num_envs: int = 1
+
+        def __post_init__(self):
+            require("lr", self.lr, self.lr > 0, "> 0")
+            require("batch_size", self.batch_size, self.batch_size >= 1, ">= 1")
+            require("buffer_size", self.buffer_size, self.buffer_size >= 1, ">= 1")
+            require("learning_starts", self.learning_starts, self.learning_starts >= 0, ">= 0")
+            require("train_every", self.train_every, self.train_every >= 1, ">= 1")
+            require("target_update_every", self.target_update_every,
+                    self.target_update_every >= 1, ">= 1")
+            require("polyak", self.polyak, self.polyak is None or 0 < self.polyak <= 1,
+                    "null or in (0, 1]")
+            require("hidden", self.hidden, len(self.hidden) > 0 and min(self.hidden) >= 1,
+                    "a non-empty list of positive layer widths")
+            for name in ("eps_start", "eps_end"):
+                v = getattr(self, name)
+                require(name, v, 0 <= v <= 1, "in [0, 1]")
+            require("eps_decay_steps", self.eps_decay_steps, self.eps_decay_steps >= 0, ">= 0")
+            require("max_grad_norm", self.max_grad_norm,
+                    self.max_grad_norm is None or self.max_grad_norm > 0, "null or > 0")
+            require("num_envs", self.num_envs, self.num_envs >= 1, ">= 1")
+
+    def __init__(self, observation_space, action_space, config: Config, seed: int):
+        super().__init__(observation_space, action_space, config, seed)
+        c = config
+        self.rng, self.gen = make_generators(seed)
+        self.n_actions = int(action_space.n)
+        self.obs_dim = flat_dim(observation_space)
+        self.q = mlp(self.obs_dim, c.hidden, self.n_actions, self.gen)
+        self.target = mlp(self.obs_dim, c.hidden, self.n_actions, self.gen)
+        self.target.load_state_dict(self.q.state_dict())
+        self.target.requires_grad_(False)
+        self.q_numpy = NumpyMLP(self.q)
+        self.opt = adam(self.q.parameters(), c.lr)
+        self.buffer = ReplayBuffer(c.buffer_size, (self.obs_dim,))
+        self.epsilon = LinearSchedule(c.eps_start, c.eps_end, c.eps_decay_steps)
+        self.env_steps = 0
+        self.updates = 0
+        self._train_credit = 0
+        self._last_target_copy = 0
+
+    # -- acting --------------------------------------------------------------------------
+    def act(self, obs: np.ndarray, explore: bool) -> np.ndarray:
+        x = obs.reshape(len(obs), -1)
+        greedy = self.q_numpy(x).argmax(axis=1)
+        if not explore:
+            return greedy
+        eps = self.epsilon(self.env_steps)
+        if len(x) == 1:
+            if self.rng.random() < eps:
+                greedy[0] = self.rng.integers(self.n_actions)
+            return greedy
+        explore_mask = self.rng.random(len(x)) < eps
+        return np.where(explore_mask, self.rng.integers(self.n_actions, size=len(x)), greedy)
+
+    # -- learning ------------------------------------------------------------------------
+    def observe(self, step: Step) -> dict[str, float]:
+        n = len(step.rewards)
+        self.buffer.add(step.obs.reshape(n, -1), step.actions, step.rewards,
+                        step.next_obs.reshape(n, -1), step.terminated)
+        self.env_steps = step.env_steps
+        c = self.config
+        if self.env_steps < c.learning_starts:
+            return {}
+        self._train_credit += n
+        metrics: dict[str, float] = {}
+        while self._train_credit >= c.train_every:
+            self._train_credit -= c.train_every
+            metrics["loss"] = self._update()
+        if c.polyak is None and self.env_steps - self._last_target_copy >= c.target_update_every:
+            self.target.load_state_dict(self.q.state_dict())
+            self._last_target_copy = self.env_steps
+        if metrics:
+            metrics["epsilon"] = self.epsilon(self.env_steps)
+        return metrics
+
+    def _update(self) -> float:
+        c = self.config
+        b = self.buffer.sample(c.batch_size, self.rng)
+        obs = torch.from_numpy(b["obs"])
+        next_obs = torch.from_numpy(b["next_obs"])
+        actions = torch.from_numpy(b["actions"]).unsqueeze(1)
+        with torch.no_grad():
+            next_target = self.target(next_obs)
+            if c.double:
+                best = self.q(next_obs).argmax(dim=1, keepdim=True)
+                next_value = next_target.gather(1, best).squeeze(1)
+            else:
+                next_value = next_target.max(dim=1).values
+            not_done = 1.0 - torch.from_numpy(b["terminated"])
+            target = torch.from_numpy(b["rewards"]) + c.gamma * not_done * next_value
+        q_taken = self.q(obs).gather(1, actions).squeeze(1)
+        loss = F.smooth_l1_loss(q_taken, target)
+        self.opt.zero_grad(set_to_none=True)
+        loss.backward()
+        clip_grad_norm(self.q.parameters(), c.max_grad_norm)
+        self.opt.step()
+        self.updates += 1
+        if c.polyak is not None:
+            with torch.no_grad():
+                torch._foreach_lerp_(list(self.target.parameters()), list(self.q.parameters()),
+                                     c.polyak)
+        return float(loss.detach())
+
+    # -- state ---------------------------------------------------------------------------
+    def state_dict(self) -> dict[str, Any]:
+        return {
+            "q": self.q.state_dict(),
+            "target": self.target.state_dict(),
+            "optimizer": self.opt.state_dict(),
+            "buffer": self.buffer.state_dict(),
+            "rng": generator_states(self.rng, self.gen),
+            "counters": {
+                "env_steps": self.env_steps,
+                "updates": self.updates,
+                "train_credit": self._train_credit,
+                "last_target_copy": self._last_target_copy,
+            },
+        }
+
+    def load_state_dict(self, state: dict[str, Any]) -> None:
+        self.q.load_state_dict(state["q"])
+        self.target.load_state_dict(state["target"])
+        self.opt.load_state_dict(state["optimizer"])
+        self.buffer.load_state_dict(state["buffer"])
+        load_generator_states(state["rng"], self.rng, self.gen)
+        k = state["counters"]
+        self.env_steps = int(k["env_steps"])
+        self.updates = int(k["updates"])
+        self._train_credit = int(k["train_credit"])
+        self._last_target_copy = int(k["last_target_copy"])

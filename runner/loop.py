@@ -1,0 +1,187 @@
+"""The training loop: step the training envs, feed the agent, evaluate on schedule.
+
+The loop is the same for every agent: it calls only the :class:`agents.base.Agent`
+interface. Its whole state (counters, records so far, the current observations and the
+agent's own state) can be captured between two steps for checkpoints.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from agents.base import Agent, Step
+from envs.batch import TrainEnvs
+from runner.progress import RunProgress
+from runner.protocol import EpisodeRecord, evaluate, mean_and_stderr
+
+CHECK_EVERY = 256  # steps between looks at the clock (progress display)
+
+
+@dataclass
+class Schedule:
+    budget: int
+    eval_every: int
+    eval_episodes: int
+    deterministic: bool
+    log_every: int
+    checkpoint_every: int
+
+
+@dataclass
+class Records:
+    """What the run has produced so far; written to the run folder as CSV files."""
+
+    evals: list[EpisodeRecord] = field(default_factory=list)
+    train: list[tuple[int, float, int]] = field(default_factory=list)
+    scalars: list[tuple[int, str, float]] = field(default_factory=list)
+
+
+class Trainer:
+    """Runs one training run of ``agent`` to its budget."""
+
+    def __init__(
+        self,
+        agent: Agent,
+        envs: TrainEnvs,
+        eval_env,
+        schedule: Schedule,
+        train_seed: int,
+        eval_seeds: tuple[int, ...],
+        progress: RunProgress,
+        on_evaluation: Callable[[Trainer], None] | None = None,
+        on_checkpoint: Callable[[Trainer], None] | None = None,
+        tb=None,
+    ):
+        self.agent = agent
+        self.envs = envs
+        self.eval_env = eval_env
+        self.schedule = schedule
+        self.train_seed = train_seed
+        self.eval_seeds = eval_seeds
+        self.progress = progress
+        self.on_evaluation = on_evaluation
+        self.on_checkpoint = on_checkpoint
+        self.tb = tb
+        self.records = Records()
+        self.env_steps = 0
+        self.next_eval = schedule.eval_every
+        self.next_log = schedule.log_every
+        self.next_checkpoint = schedule.checkpoint_every or math.inf
+        self.latest: dict[str, float] = {}
+        self.obs: np.ndarray | None = None
+        self._clock = time.perf_counter()
+        self._clock_steps = 0
+        self.steps_per_s = 0.0
+
+    def run(self) -> Records:
+        """Train to the budget; evaluate every ``eval_every`` steps and once at the end."""
+        if self.obs is None:
+            self.obs = self.envs.reset(seed=self.train_seed)
+        agent, envs, sched = self.agent, self.envs, self.schedule
+        n = envs.num_envs
+        obs = self.obs
+        steps = self.env_steps
+        next_check = steps + CHECK_EVERY
+        while steps < sched.budget:
+            actions = agent.act(obs, True)
+            nxt, rewards, next_obs, terminated, truncated, finished = envs.step(actions)
+            steps += n
+            metrics = agent.observe(
+                Step(obs, actions, rewards, next_obs, terminated, truncated, steps)
+            )
+            if metrics:
+                self.latest.update(metrics)
+            if finished:
+                for ret, length in finished:
+                    self.records.train.append((steps, ret, length))
+                    if self.tb is not None:
+                        self.tb.add_scalar("train/return", ret, steps)
+            obs = nxt
+            if steps >= next_check:
+                next_check = steps + CHECK_EVERY
+                self.obs, self.env_steps = obs, steps
+                self._tick()
+            if steps >= self.next_log:
+                self.obs, self.env_steps = obs, steps
+                self._log_scalars()
+            if steps >= self.next_eval:
+                self.obs, self.env_steps = obs, steps
+                self._evaluate()
+            if steps >= self.next_checkpoint:
+                self.obs, self.env_steps = obs, steps
+                while self.next_checkpoint <= steps:
+                    self.next_checkpoint += sched.checkpoint_every
+                if self.on_checkpoint is not None:
+                    self.on_checkpoint(self)
+        self.obs, self.env_steps = obs, steps
+        if not self.records.evals or self.records.evals[-1].env_step != steps:
+            self._evaluate()
+        return self.records
+
+    # -- periodic work -------------------------------------------------------------------
+    def _tick(self) -> None:
+        now = time.perf_counter()
+        if now > self._clock:
+            self.steps_per_s = (self.env_steps - self._clock_steps) / (now - self._clock)
+        if now - self._clock > 2.0:
+            self._clock, self._clock_steps = now, self.env_steps
+        self.progress.update(self.env_steps, self.steps_per_s)
+
+    def _log_scalars(self) -> None:
+        while self.next_log <= self.env_steps:
+            self.next_log += self.schedule.log_every
+        self._tick()
+        items = dict(self.latest)
+        items["steps_per_s"] = float(self.steps_per_s)
+        for key, value in items.items():
+            self.records.scalars.append((self.env_steps, key, float(value)))
+            if self.tb is not None:
+                self.tb.add_scalar(f"train/{key}", float(value), self.env_steps)
+
+    def _evaluate(self) -> None:
+        while self.next_eval <= self.env_steps:
+            self.next_eval += self.schedule.eval_every
+        normalize = self.envs.normalizer
+        recs = evaluate(self.agent, self.eval_env, self.eval_seeds, self.env_steps,
+                        self.schedule.deterministic, normalize)
+        self.records.evals.extend(recs)
+        mean, se = mean_and_stderr([r.ret for r in recs])
+        if self.tb is not None:
+            self.tb.add_scalar("eval/mean_return", mean, self.env_steps)
+        self.progress.evaluation(self.env_steps, mean, se)
+        if self.on_evaluation is not None:
+            self.on_evaluation(self)
+
+    # -- state ---------------------------------------------------------------------------
+    def loop_state(self) -> dict[str, Any]:
+        """Counters and records (the agent and env states are saved beside this)."""
+        return {
+            "env_steps": self.env_steps,
+            "next_eval": self.next_eval,
+            "next_log": self.next_log,
+            "next_checkpoint": self.next_checkpoint if math.isfinite(self.next_checkpoint) else -1,
+            "latest": dict(self.latest),
+            "evals": [r.row() for r in self.records.evals],
+            "train": list(self.records.train),
+            "scalars": list(self.records.scalars),
+        }
+
+    def load_loop_state(self, state: dict[str, Any]) -> None:
+        self.env_steps = int(state["env_steps"])
+        self.next_eval = int(state["next_eval"])
+        self.next_log = int(state["next_log"])
+        nc = int(state["next_checkpoint"])
+        self.next_checkpoint = math.inf if nc < 0 else nc
+        self.latest = dict(state["latest"])
+        self.records = Records(
+            evals=[EpisodeRecord(*row) for row in state["evals"]],
+            train=[tuple(r) for r in state["train"]],
+            scalars=[tuple(r) for r in state["scalars"]],
+        )
+        self._clock_steps = self.env_steps

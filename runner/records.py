@@ -1,0 +1,143 @@
+"""Run records on disk: atomic writes, run ids, provenance, CSV formats."""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import json
+import os
+import platform
+import socket
+import subprocess
+import tempfile
+from collections.abc import Iterable, Sequence
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+EVAL_COLUMNS = ("env_step", "episode", "return", "discounted_return", "length", "episode_seed")
+TRAIN_COLUMNS = ("env_step", "return", "length")
+SCALAR_COLUMNS = ("env_step", "key", "value")
+HASH_EXCLUDED = ("sweep", "results_dir")
+
+
+def atomic_write_bytes(path: Path, data: bytes) -> None:
+    """Write ``data`` to ``path`` so readers see the old file or the new one, never a mix."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as f:
+            f.write(data)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    fsync_dir(path.parent)
+
+
+def atomic_write_text(path: Path, text: str) -> None:
+    atomic_write_bytes(path, text.encode("utf-8"))
+
+
+def atomic_write_json(path: Path, obj: Any) -> None:
+    atomic_write_text(path, json.dumps(obj, indent=2, sort_keys=False) + "\n")
+
+
+def fsync_dir(path: Path) -> None:
+    try:
+        fd = os.open(path, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def csv_text(columns: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
+    """CSV with floats written by ``repr`` (shortest round-trip form): bit-exact, stable."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(columns)
+    for row in rows:
+        w.writerow([repr(v) if isinstance(v, float) else v for v in row])
+    return buf.getvalue()
+
+
+def config_hash(resolved: dict[str, Any]) -> str:
+    """Stable hash of the parts of a resolved config that change what a run computes."""
+    payload = {k: v for k, v in resolved.items() if k not in HASH_EXCLUDED}
+    blob = json.dumps(payload, sort_keys=True, separators=(",", ":"), default=str)
+    return hashlib.sha256(blob.encode()).hexdigest()[:10]
+
+
+def run_id(resolved: dict[str, Any]) -> str:
+    """Folder name of a run: readable prefix plus the config hash."""
+    agent = resolved["agent"]["name"]
+    env = resolved["env"]["name"]
+    return f"{agent}-{env}-s{resolved['seed']}-{config_hash(resolved)}"
+
+
+def now_iso() -> str:
+    return datetime.now(UTC).isoformat(timespec="seconds")
+
+
+_PROVENANCE: dict[str, Any] | None = None
+
+
+def provenance() -> dict[str, Any]:
+    """Where and with what code a run was made (computed once per process)."""
+    global _PROVENANCE
+    if _PROVENANCE is None:
+        import gymnasium
+        import numpy
+        import torch
+
+        commit, dirty = _git_state()
+        _PROVENANCE = {
+            "git_commit": commit,
+            "git_dirty": dirty,
+            "python": platform.python_version(),
+            "torch": torch.__version__,
+            "gymnasium": gymnasium.__version__,
+            "numpy": numpy.__version__,
+            "cpu": _cpu_model(),
+            "hostname": socket.gethostname(),
+        }
+    return dict(_PROVENANCE)
+
+
+def code_root() -> Path:
+    return Path(__file__).resolve().parent.parent
+
+
+def _git_state() -> tuple[str | None, bool | None]:
+    root = code_root()
+    try:
+        commit = subprocess.run(
+            ["git", "-C", str(root), "rev-parse", "HEAD"],
+            capture_output=True, text=True, timeout=10, check=True,
+        ).stdout.strip()
+        status = subprocess.run(
+            ["git", "-C", str(root), "status", "--porcelain", "--untracked-files=no"],
+            capture_output=True, text=True, timeout=10, check=True,
+        ).stdout.strip()
+        return commit, bool(status)
+    except (OSError, subprocess.SubprocessError):
+        return None, None
+
+
+def _cpu_model() -> str:
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                return line.split(":", 1)[1].strip()
+    except OSError:
+        pass
+    return platform.processor() or platform.machine()
