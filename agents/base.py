@@ -61,7 +61,7 @@ class ConfigError(ValueError):
         self.field = field
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Step:
     """One vectorised environment step, as the agent sees it.
 

@@ -18,7 +18,7 @@ from gymnasium import spaces
 
 from agents.base import Agent, Step, require
 from agents.common.networks import NumpyMLP, flat_dim, mlp
-from agents.common.optim import adam, clip_grad_norm
+from agents.common.optim import FlatParameters
 from agents.common.replay import ReplayBuffer
 from agents.common.rng import generator_states, load_generator_states, make_generators
 from agents.common.schedules import LinearSchedule
@@ -75,8 +75,10 @@ class DQN(Agent):
         self.target = mlp(self.obs_dim, c.hidden, self.n_actions, self.gen)
         self.target.load_state_dict(self.q.state_dict())
         self.target.requires_grad_(False)
+        self.flat = FlatParameters(self.q)
         self.q_numpy = NumpyMLP(self.q)
-        self.opt = adam(self.q.parameters(), c.lr)
+        self.target_numpy = NumpyMLP(self.target)
+        self.opt = self.flat.adam(c.lr)
         self.buffer = ReplayBuffer(c.buffer_size, (self.obs_dim,))
         self.epsilon = LinearSchedule(c.eps_start, c.eps_end, c.eps_decay_steps)
         self.env_steps = 0
@@ -122,23 +124,20 @@ class DQN(Agent):
     def _update(self) -> float:
         c = self.config
         b = self.buffer.sample(c.batch_size, self.rng)
-        obs = torch.from_numpy(b["obs"])
-        next_obs = torch.from_numpy(b["next_obs"])
+        # Bootstrap targets need no gradient: computed in numpy on views of the weights.
+        next_target = self.target_numpy(b["next_obs"])
+        if c.double:
+            best = self.q_numpy(b["next_obs"]).argmax(axis=1)
+        else:
+            best = next_target.argmax(axis=1)
+        next_value = next_target[np.arange(len(best)), best]
+        target = b["rewards"] + np.float32(c.gamma) * (1.0 - b["terminated"]) * next_value
         actions = torch.from_numpy(b["actions"]).unsqueeze(1)
-        with torch.no_grad():
-            next_target = self.target(next_obs)
-            if c.double:
-                best = self.q(next_obs).argmax(dim=1, keepdim=True)
-                next_value = next_target.gather(1, best).squeeze(1)
-            else:
-                next_value = next_target.max(dim=1).values
-            not_done = 1.0 - torch.from_numpy(b["terminated"])
-            target = torch.from_numpy(b["rewards"]) + c.gamma * not_done * next_value
-        q_taken = self.q(obs).gather(1, actions).squeeze(1)
-        loss = F.smooth_l1_loss(q_taken, target)
-        self.opt.zero_grad(set_to_none=True)
+        q_taken = self.q(torch.from_numpy(b["obs"])).gather(1, actions).squeeze(1)
+        loss = F.smooth_l1_loss(q_taken, torch.from_numpy(target))
+        self.flat.zero_grad()
         loss.backward()
-        clip_grad_norm(self.q.parameters(), c.max_grad_norm)
+        self.flat.clip_grad_norm_(c.max_grad_norm)
         self.opt.step()
         self.updates += 1
         if c.polyak is not None:

@@ -27,6 +27,7 @@ class EnvSpec:
     max_episode_steps: int | None = None
     reference: float | None = None
     wrappers: tuple[tuple[str, dict[str, Any]], ...] = ()
+    make_id: str = ""  # what gym.make is called with (differs for module:Class entries)
 
     @property
     def env_wrappers(self) -> list[tuple[str, dict[str, Any]]]:
@@ -66,7 +67,8 @@ def parse_env_config(cfg: dict[str, Any]) -> EnvSpec:
         ref = check_type("env.reference", ref, float)
     spec = EnvSpec(
         name=str(cfg.get("name") or env_id),
-        id=_resolve_id(env_id),
+        id=env_id,
+        make_id=_resolve_id(env_id),
         kwargs=dict(kwargs),
         max_episode_steps=mes,
         reference=ref,
@@ -85,7 +87,11 @@ def parse_env_config(cfg: dict[str, Any]) -> EnvSpec:
 
 
 def _resolve_id(env_id: str) -> str:
-    """A registered id as is; ``module:Class`` is registered under that name first."""
+    """A registered id as is; ``module:Class`` is registered with gymnasium first.
+
+    gymnasium reads ``a:b`` in ``gym.make`` as "import a, then make id b", so a class entry
+    is registered under ``seedsweep/<module>.<Class>`` instead.
+    """
     if env_id in gym.registry:
         return env_id
     if ":" in env_id:
@@ -96,9 +102,10 @@ def _resolve_id(env_id: str) -> str:
             raise ConfigError("env.id", f"cannot import module {module_name!r}: {err}") from None
         target = getattr(module, attr, None)
         if isinstance(target, type) and issubclass(target, gym.Env):
-            if env_id not in gym.registry:
-                gym.register(id=env_id, entry_point=target)
-            return env_id
+            registered = f"seedsweep/{module_name}.{attr}"
+            if registered not in gym.registry:
+                gym.register(id=registered, entry_point=target)
+            return registered
         if attr in gym.registry:  # gymnasium's "module:EnvId-v0" (the module registers it)
             return attr
         raise ConfigError(
@@ -118,7 +125,7 @@ def make_env(spec: EnvSpec) -> gym.Env:
     if spec.max_episode_steps is not None:
         kwargs["max_episode_steps"] = spec.max_episode_steps
     try:
-        env = gym.make(spec.id, disable_env_checker=True, **kwargs)
+        env = gym.make(spec.make_id, disable_env_checker=True, **kwargs)
     except TypeError as err:
         raise ConfigError("env.kwargs", f"{spec.id} rejects {spec.kwargs}: {err}") from None
     _check_once(spec, env)
@@ -136,7 +143,7 @@ def _check_once(spec: EnvSpec, env: gym.Env) -> None:
     _CHECKED.add(spec.id)
     from gymnasium.utils.env_checker import check_env
 
-    probe = gym.make(spec.id, disable_env_checker=True, **spec.kwargs)
+    probe = gym.make(spec.make_id, disable_env_checker=True, **spec.kwargs)
     try:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")

@@ -78,6 +78,7 @@ class Trainer:
         self._clock = time.perf_counter()
         self._clock_steps = 0
         self.steps_per_s = 0.0
+        self._logged_episodes = 0
 
     def run(self) -> Records:
         """Train to the budget; evaluate every ``eval_every`` steps and once at the end."""
@@ -100,8 +101,6 @@ class Trainer:
             if finished:
                 for ret, length in finished:
                     self.records.train.append((steps, ret, length))
-                    if self.tb is not None:
-                        self.tb.add_scalar("train/return", ret, steps)
             obs = nxt
             if steps >= next_check:
                 next_check = steps + CHECK_EVERY
@@ -139,6 +138,10 @@ class Trainer:
         self._tick()
         items = dict(self.latest)
         items["steps_per_s"] = float(self.steps_per_s)
+        recent = self.records.train[self._logged_episodes:]
+        self._logged_episodes = len(self.records.train)
+        if recent:  # TensorBoard gets the mean per log interval; train.csv has every episode
+            items["episode_return"] = sum(r[1] for r in recent) / len(recent)
         for key, value in items.items():
             self.records.scalars.append((self.env_steps, key, float(value)))
             if self.tb is not None:

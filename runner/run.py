@@ -188,9 +188,11 @@ def execute(p: PreparedRun, progress: str = "auto") -> dict[str, Any]:
             on_checkpoint=lambda t: save_state(run_dir / CHECKPOINT, t),
             tb=tb,
         )
+        loop_start = time.perf_counter()
         try:
             trainer.run()
         finally:
+            loop_s = time.perf_counter() - loop_start
             bar.close()
             tb.close()
             envs.close()
@@ -202,6 +204,7 @@ def execute(p: PreparedRun, progress: str = "auto") -> dict[str, Any]:
         doc = _run_json(
             p, "complete", started, env_steps=trainer.env_steps,
             final_score=sum(finals) / len(finals), wall_s=round(time.perf_counter() - t0, 3),
+            loop_s=round(loop_s, 3),
             finished=records.now_iso(),
         )
         records.atomic_write_json(run_dir / "run.json", doc)

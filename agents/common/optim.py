@@ -26,3 +26,43 @@ def clip_grad_norm(params: Iterable[torch.nn.Parameter], max_norm: float | None)
     if not max_norm or max_norm <= 0:
         return float("nan")
     return float(torch.nn.utils.clip_grad_norm_(params, max_norm, foreach=True))
+
+
+class FlatParameters:
+    """The parameters of some modules laid out in one contiguous tensor, gradients too.
+
+    Each module parameter becomes a view into ``data`` and its ``.grad`` a view into
+    ``grad`` (autograd accumulates into an existing ``.grad`` in place). Zeroing, clipping
+    and the Adam step then each touch one tensor instead of one per layer, which on small
+    networks removes most of the per-update overhead. Results equal the per-parameter
+    versions (checked in tests against ``torch.nn.utils.clip_grad_norm_``).
+    """
+
+    def __init__(self, *modules: torch.nn.Module):
+        params = [p for m in modules for p in m.parameters()]
+        total = sum(p.numel() for p in params)
+        self.data = torch.zeros(total)
+        self.grad = torch.zeros(total)
+        offset = 0
+        for p in params:
+            k = p.numel()
+            self.data[offset:offset + k].copy_(p.detach().reshape(-1))
+            p.data = self.data[offset:offset + k].view_as(p)
+            p.grad = self.grad[offset:offset + k].view_as(p)
+            offset += k
+        self.param = torch.nn.Parameter(self.data)
+        self.param.grad = self.grad
+
+    def zero_grad(self) -> None:
+        self.grad.zero_()
+
+    def clip_grad_norm_(self, max_norm: float | None) -> torch.Tensor:
+        """Scale gradients so their global L2 norm is at most ``max_norm``; returns the
+        norm before clipping. Same rule as ``torch.nn.utils.clip_grad_norm_``."""
+        norm = torch.linalg.vector_norm(self.grad)
+        if max_norm:
+            self.grad.mul_((max_norm / (norm + 1e-6)).clamp_(max=1.0))
+        return norm
+
+    def adam(self, lr: float, eps: float = 1e-8) -> torch.optim.Adam:
+        return adam([self.param], lr=lr, eps=eps)

@@ -1,0 +1,168 @@
+"""report.html: one self-contained page (figures embedded as base64 PNG, no external files).
+
+Every string that comes from run folders or the command line (agent, env and run names,
+error messages, provenance) goes through :func:`html.escape`.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import json
+from collections import Counter
+from collections.abc import Iterable, Sequence
+from typing import Any
+
+from runner.stats import STATISTICS
+
+STYLE = """
+body{font-family:system-ui,sans-serif;margin:2em auto;max-width:1100px;color:#222}
+table{border-collapse:collapse;margin:.5em 0 1.5em}
+th,td{border:1px solid #ccc;padding:.25em .6em;text-align:right;font-size:.9em}
+th{background:#f3f3f3} td.l,th.l{text-align:left}
+img{max-width:100%;border:1px solid #eee;margin:.5em 0}
+.bad{color:#a00} code{background:#f5f5f5;padding:0 .2em}
+"""
+STAT_NAMES = {"iqm": "IQM", "mean": "Mean", "median": "Median",
+              "optimality_gap": "Optimality gap"}
+
+
+def esc(value: Any) -> str:
+    return html.escape(str(value), quote=True)
+
+
+def _table(header: Sequence[str], rows: Iterable[Sequence[Any]], left: int = 1) -> str:
+    """A table; the first ``left`` columns are text (left-aligned); cells are escaped."""
+    head = "".join(f"<th class='{'l' if i < left else ''}'>{esc(h)}</th>"
+                   for i, h in enumerate(header))
+    body = "".join(
+        "<tr>" + "".join(f"<td class='{'l' if i < left else ''}'>{esc(c)}</td>"
+                         for i, c in enumerate(row)) + "</tr>"
+        for row in rows)
+    return f"<table><tr>{head}</tr>{body}</table>"
+
+
+def _iv(d: dict[str, float]) -> str:
+    return f"{d['point']:.3f} [{d['low']:.3f}, {d['high']:.3f}]"
+
+
+def _figure(figures: dict[str, tuple[bytes, bytes]], name: str, alt: str) -> str:
+    if name not in figures:
+        return "<p><em>figures were not made (--no-figures)</em></p>"
+    data = base64.b64encode(figures[name][0]).decode("ascii")
+    return f"<img alt='{esc(alt)}' src='data:image/png;base64,{data}'>"
+
+
+def render(data: Any, summary: dict[str, Any], figures: dict[str, tuple[bytes, bytes]]) -> str:
+    """The whole page as a string."""
+    conf = f"{summary['bootstrap']['confidence']:.0%}"
+    parts = [
+        "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
+        f"<title>seedsweep report: {esc(data.sweep.name)}</title><style>{STYLE}</style>",
+        "</head><body>",
+        f"<h1>Sweep <code>{esc(data.sweep.name)}</code></h1>",
+        f"<p>Folder: <code>{esc(data.sweep.path)}</code>. {len(data.agents)} compared agents, "
+        f"{len(data.envs)} envs, {len(data.runs)} complete runs used, "
+        f"<span class='{'bad' if data.problems else ''}'>{len(data.problems)} left out</span>."
+        "</p>",
+        _protocol(data, summary),
+        f"<h2>Aggregate normalised scores ({esc(conf)} intervals)</h2>",
+        _table(["agent", "runs"] + [STAT_NAMES[s] for s in STATISTICS],
+               [[a, summary["agents"][a]["n_runs"]]
+                + [_iv(summary["agents"][a][s]) for s in STATISTICS] for a in data.agents]),
+        _figure(figures, "aggregate_intervals", "aggregate intervals per agent"),
+        "<h2>Probability of improvement</h2>",
+        "<p>P(X &gt; Y): the probability that a run of X on a random env scores higher than a "
+        "run of Y (Mann-Whitney U / (n m) per env, ties count 1/2, averaged over envs).</p>",
+        _table(["X", "Y", "P(X > Y)"],
+               [[p["x"], p["y"], _iv(p)] for p in summary["probability_of_improvement"]], 2),
+        _figure(figures, "probability_of_improvement", "probability of improvement"),
+        "<h2>Performance profiles</h2>",
+        _figure(figures, "performance_profiles", "performance profiles"),
+        "<h2>Sample efficiency</h2>",
+        f"<p>IQM of normalised scores over all runs and envs at each evaluation; x axis: "
+        f"{esc(data.efficiency_x)}.</p>",
+        _figure(figures, "sample_efficiency", "sample-efficiency curves"),
+        "<h2>References per env</h2>",
+        _references(data),
+        "<h2>Per-env raw scores (IQM over seeds)</h2>",
+        _per_env(data, summary),
+        _figure(figures, "learning_curves", "per-env learning curves"),
+        "<h2>Runs left out</h2>",
+        _problems(data),
+        "<h2>Provenance of the runs</h2>",
+        _provenance(data),
+        "<h2>Timing</h2>",
+        _table(["step", "seconds"], sorted(data.timing.items())),
+        "</body></html>",
+    ]
+    return "\n".join(parts) + "\n"
+
+
+def _protocol(data: Any, summary: dict[str, Any]) -> str:
+    b, s = summary["bootstrap"], summary["score"]
+    method = {"final": "mean undiscounted return of the last evaluation",
+              "last-k": f"mean of the last {s['last_k']} evaluations' mean returns",
+              "auc": "area under the evaluation curve divided by its span of env steps"}
+    rows = [
+        ["run score", method[s["method"]]],
+        ["normalised score", s["normalisation"]],
+        ["random score", "the random agent under the same evaluation protocol: its runs in "
+         "the sweep, or measured into <results>/_reference_cache/ (mean over episodes, "
+         "Student-t interval)"],
+        ["reference", "env.reference if set; else the exact oracle optimum for tabular envs; "
+         "else the gymnasium spec's reward_threshold"],
+        ["oracle", summary["oracle_protocol"]],
+        ["aggregates", "IQM: mean of the middle 50% of all runs pooled over envs; mean and "
+         "median: of per-env means; optimality gap: mean of max(1 - x, 0) (per env, averaged)"],
+        ["intervals", f"stratified bootstrap (strata = envs), percentile, {b['resamples']} "
+         f"resamples, confidence {b['confidence']}, seed {b['seed']}"],
+        ["method reference", "Agarwal et al. 2021, Deep Reinforcement Learning at the Edge of "
+         "the Statistical Precipice (NeurIPS)"],
+    ]
+    for env, ev in data.eval_settings.items():
+        rows.append([f"evaluation on {env}", f"{ev['episodes']} episodes per evaluation, "
+                     f"deterministic={str(ev['deterministic']).lower()}"])
+    return "<h2>Protocol</h2>" + _table(["setting", "value"], rows, 2)
+
+
+def _references(data: Any) -> str:
+    rows = []
+    for e in data.envs:
+        r = data.references[e]
+        rows.append([e, r.env_config, f"{r.random:.4g}", f"[{r.random_low:.4g}, "
+                     f"{r.random_high:.4g}]", r.random_episodes,
+                     "sweep runs" if r.random_source == "sweep" else "measured (cache)",
+                     f"{r.reference:.6g}", r.source, r.detail])
+    return _table(["env", "config", "random", "random CI", "episodes", "random from",
+                   "reference", "source", "how"], rows, 2)
+
+
+def _per_env(data: Any, summary: dict[str, Any]) -> str:
+    header = ["agent"] + [f"{e} (seeds)" for e in data.envs]
+    rows = []
+    for a in data.shown:
+        cells = summary["per_env"].get(a, {})
+        rows.append([a] + [f"{_iv(cells[e])} ({cells[e]['n_seeds']})" if e in cells else "-"
+                           for e in data.envs])
+    return _table(header, rows)
+
+
+def _problems(data: Any) -> str:
+    if not data.problems:
+        return "<p>None: every run folder is complete and used.</p>"
+    rows = [[p.status, p.run_id, p.agent, p.env, p.seed, p.reason] for p in data.problems]
+    return _table(["status", "run", "agent", "env", "seed", "reason"], rows, 6)
+
+
+def _provenance(data: Any) -> str:
+    groups: Counter[str] = Counter()
+    for r in data.runs:
+        groups[json.dumps(r.record.get("provenance") or {}, sort_keys=True)] += 1
+    keys = ["git_commit", "git_dirty", "python", "torch", "gymnasium", "numpy", "cpu",
+            "hostname"]
+    rows = []
+    for blob, n in groups.most_common():
+        prov = json.loads(blob)
+        rows.append([n] + [prov.get(k, "") for k in keys])
+    return _table(["runs"] + keys, rows, 9)

@@ -1,0 +1,112 @@
+"""The env layer: building from config, wrappers, train/eval separation, custom envs."""
+
+import gymnasium as gym
+import numpy as np
+import pytest
+
+from agents.base import ConfigError
+from envs.build import make_eval_env, make_train_envs, parse_env_config
+
+
+def spec(**kw):
+    base = {"name": "t", "id": "CartPole-v1", "kwargs": {}, "max_episode_steps": None,
+            "reference": None, "wrappers": []}
+    base.update(kw)
+    return parse_env_config(base)
+
+
+def test_spec_time_limit_is_kept():
+    env = make_eval_env(spec())
+    env.reset(seed=0)
+    assert env.spec.max_episode_steps == 500  # CartPole-v1 spec limit (gymnasium env spec)
+
+
+def test_time_limit_wrapper_truncates():
+    env = make_eval_env(spec(wrappers=[{"name": "time_limit", "max_episode_steps": 7}]))
+    env.reset(seed=0)
+    for t in range(7):
+        _, _, term, trunc, _ = env.step(0 if t % 2 else 1)
+        if term:
+            pytest.skip("terminated before the limit")  # cannot happen in 7 alternating steps
+    assert trunc
+
+
+def test_one_hot_makes_frozenlake_an_mlp_input():
+    # FrozenLake-v1 4x4 has Discrete(16) observations, start state 0 (gymnasium docs).
+    env = make_eval_env(spec(id="FrozenLake-v1", wrappers=[{"name": "one_hot"}]))
+    obs, _ = env.reset(seed=0)
+    assert obs.shape == (16,) and obs.sum() == 1 and obs[0] == 1
+
+
+def test_frame_stack_and_action_repeat_shapes():
+    env = make_eval_env(spec(wrappers=[{"name": "frame_stack", "size": 3},
+                                       {"name": "action_repeat", "repeat": 2}]))
+    obs, _ = env.reset(seed=0)
+    assert obs.shape == (12,)  # 3 stacked CartPole observations of 4 numbers (env spec)
+
+
+def test_reward_transforms_are_training_only_and_raw_return_is_recorded():
+    s = spec(wrappers=[{"name": "scale_reward", "scale": 0.5}])
+    train = make_train_envs(s, 1)
+    train.reset(seed=0)
+    rewards, finished = [], []
+    while not finished:
+        _, r, _, _, _, finished = train.step(np.array([0]))
+        rewards.append(float(r[0]))
+    assert set(rewards) == {0.5}  # CartPole pays +1 per step (gymnasium docs), scaled by 0.5
+    assert finished[0][0] == finished[0][1] == len(rewards)  # raw return = length x 1
+    ev = make_eval_env(s)
+    ev.reset(seed=0)
+    assert ev.step(0)[1] == 1.0
+
+
+def test_normaliser_updates_in_training_and_is_shared_frozen_in_eval():
+    s = spec(wrappers=[{"name": "normalize_obs"}])
+    train = make_train_envs(s, 2)
+    train.reset(seed=0)
+    for _ in range(20):
+        train.step(np.array([0, 1]))
+    norm = train.normalizer
+    count = norm.rms.count
+    x = np.ones((1, 4), np.float32)
+    y = norm(x)
+    assert norm.rms.count == count  # normalising alone never updates the statistics
+    np.testing.assert_allclose(y, np.clip((x - norm.rms.mean) / np.sqrt(norm.rms.var + 1e-8), -10, 10),
+                               rtol=1e-6)
+
+
+def test_vector_training_envs_return_final_observation_on_reset():
+    s = spec(wrappers=[{"name": "time_limit", "max_episode_steps": 3}])
+    train = make_train_envs(s, 2)
+    obs = train.reset(seed=0)
+    for _ in range(3):
+        obs, _, next_obs, term, trunc, finished = train.step(np.array([0, 1]))
+    assert trunc.all() and len(finished) == 2
+    assert not np.allclose(obs, next_obs)  # obs = reset obs, next_obs = final obs
+
+
+@pytest.mark.parametrize("entry,field,allowed", [
+    ({"id": "NoSuchEnv-v0"}, "env.id", "unknown gymnasium id"),
+    ({"wrappers": [{"name": "blur"}]}, "env.wrappers[0].name", "allowed: time_limit"),
+    ({"wrappers": [{"name": "frame_stack"}]}, "env.wrappers[0].size", "required"),
+    ({"wrappers": [{"name": "frame_stack", "size": 0}]}, "env.wrappers[0].size", ">= 1"),
+    ({"wrappers": [{"name": "one_hot", "n": 3}]}, "env.wrappers[0].n", "unknown parameter"),
+    ({"id": "CliffWalking-v1", "max_episode_steps": None}, "env.max_episode_steps", "no time limit"),
+    ({"colour": 1}, "env.colour", "unknown key"),
+])
+def test_bad_env_config_names_the_field(entry, field, allowed):
+    with pytest.raises(ConfigError) as info:
+        spec(**entry)
+    assert info.value.field == field and allowed in str(info.value)
+
+
+def test_custom_env_by_module_and_class():
+    s = spec(id="tests.toy_envs:ConstantReward", kwargs={"horizon": 4}, max_episode_steps=50)
+    env = make_eval_env(s)
+    env.reset(seed=0)
+    assert isinstance(env.unwrapped, gym.Env) and env.unwrapped.horizon == 4
+
+
+def test_custom_env_failing_the_checker_is_reported():
+    with pytest.raises(ConfigError, match="env checker"):
+        spec(id="tests.toy_envs:OutOfSpace", max_episode_steps=50)
