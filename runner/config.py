@@ -24,8 +24,35 @@ GROUPS = ("agent", "env")
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_][A-Za-z0-9_.-]*$")
 
 
+HYDRA_GROUPS = ("agent", "env", "suite")  # config folders that are hydra groups
+
+
 def config_dir() -> Path:
     return Path(__file__).resolve().parent.parent / "configs"
+
+
+_HYDRA_ROOTS: dict[str, str] = {}
+
+
+def _hydra_root(source: Path) -> str:
+    """A folder hydra may read as a config tree: links to ``source``'s run configs only.
+
+    hydra reads every sub-folder of a config folder as a config group, and a group named
+    ``sweep`` would capture the ``sweep=NAME`` key; sweep files are plans, not run configs.
+    """
+    key = str(source.resolve())
+    if key not in _HYDRA_ROOTS:
+        import atexit
+        import shutil
+        import tempfile
+
+        root = Path(tempfile.mkdtemp(prefix="seedsweep-configs-"))
+        atexit.register(shutil.rmtree, root, True)
+        for name in ("config.yaml", *HYDRA_GROUPS):
+            if (source / name).exists():
+                (root / name).symlink_to(source.resolve() / name)
+        _HYDRA_ROOTS[key] = str(root)
+    return _HYDRA_ROOTS[key]
 
 
 def group_options(group: str, extra_dirs: Sequence[Path] = ()) -> list[str]:
@@ -79,10 +106,11 @@ def compose(overrides: Sequence[str], extra_dirs: Sequence[Path] = ()) -> dict[s
 
     _check_groups(overrides, extra_dirs)
     overrides = list(overrides)
-    for d in extra_dirs:
-        overrides.append(f"hydra.searchpath=[file://{Path(d).resolve()}]")
+    if extra_dirs:
+        roots = ",".join(f"file://{_hydra_root(Path(d))}" for d in extra_dirs)
+        overrides.append(f"hydra.searchpath=[{roots}]")
     try:
-        with initialize_config_dir(config_dir=str(config_dir()), version_base=None):
+        with initialize_config_dir(config_dir=_hydra_root(config_dir()), version_base=None):
             cfg = hydra_compose(config_name="config", overrides=overrides)
         resolved = OmegaConf.to_container(cfg, resolve=True)
     except (HydraException, OmegaConfBaseException) as err:

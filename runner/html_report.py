@@ -31,13 +31,28 @@ def esc(value: Any) -> str:
     return html.escape(str(value), quote=True)
 
 
+def _is_number(cell: Any) -> bool:
+    text = str(cell).split(" ")[0]
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
 def _table(header: Sequence[str], rows: Iterable[Sequence[Any]], left: int = 1) -> str:
-    """A table; the first ``left`` columns are text (left-aligned); cells are escaped."""
+    """A table; the first ``left`` columns and every non-numeric cell are left-aligned;
+    every cell is escaped."""
+    rows = [list(r) for r in rows]
+
+    def cls(i: int, cell: Any) -> str:
+        return "l" if i < left or not _is_number(cell) else ""
+
     head = "".join(f"<th class='{'l' if i < left else ''}'>{esc(h)}</th>"
                    for i, h in enumerate(header))
     body = "".join(
-        "<tr>" + "".join(f"<td class='{'l' if i < left else ''}'>{esc(c)}</td>"
-                         for i, c in enumerate(row)) + "</tr>"
+        "<tr>" + "".join(f"<td class='{cls(i, c)}'>{esc(c)}</td>" for i, c in enumerate(row))
+        + "</tr>"
         for row in rows)
     return f"<table><tr>{head}</tr>{body}</table>"
 
@@ -133,9 +148,9 @@ def _references(data: Any) -> str:
         rows.append([e, r.env_config, f"{r.random:.4g}", f"[{r.random_low:.4g}, "
                      f"{r.random_high:.4g}]", r.random_episodes,
                      "sweep runs" if r.random_source == "sweep" else "measured (cache)",
-                     f"{r.reference:.6g}", r.source, r.detail])
+                     f"{r.reference:.6g}", r.source, r.detail, r.random_note])
     return _table(["env", "config", "random", "random CI", "episodes", "random from",
-                   "reference", "source", "how"], rows, 2)
+                   "reference", "source", "how", "note"], rows, 2)
 
 
 def _per_env(data: Any, summary: dict[str, Any]) -> str:

@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+import torch
 
 from agents.base import Agent, Step
 from envs.batch import TrainEnvs
@@ -21,6 +22,23 @@ from runner.progress import RunProgress
 from runner.protocol import EpisodeRecord, evaluate, mean_and_stderr
 
 CHECK_EVERY = 256  # steps between looks at the clock (progress display)
+
+
+class NonFiniteError(FloatingPointError):
+    """A loss, metric or parameter became NaN or infinite: the run cannot go on."""
+
+
+def check_finite(state: Any, env_steps: int, path: str = "agent") -> None:
+    """Raise NonFiniteError if any floating tensor in a (nested) state is not finite."""
+    if isinstance(state, torch.Tensor):
+        if state.is_floating_point() and not bool(torch.isfinite(state).all()):
+            raise NonFiniteError(f"{path} has NaN or inf values at env step {env_steps}")
+    elif isinstance(state, dict):
+        for key, value in state.items():
+            check_finite(value, env_steps, f"{path}.{key}")
+    elif isinstance(state, (list, tuple)):
+        for i, value in enumerate(state):
+            check_finite(value, env_steps, f"{path}[{i}]")
 
 
 @dataclass
@@ -75,6 +93,8 @@ class Trainer:
         self.next_checkpoint = schedule.checkpoint_every or math.inf
         self.latest: dict[str, float] = {}
         self.obs: np.ndarray | None = None
+        self.snapshot_kind = "none"
+        self._checkpoint_pending = False
         self._clock = time.perf_counter()
         self._clock_steps = 0
         self.steps_per_s = 0.0
@@ -89,36 +109,45 @@ class Trainer:
         obs = self.obs
         steps = self.env_steps
         next_check = steps + CHECK_EVERY
-        while steps < sched.budget:
-            actions = agent.act(obs, True)
-            nxt, rewards, next_obs, terminated, truncated, finished = envs.step(actions)
-            steps += n
-            metrics = agent.observe(
-                Step(obs, actions, rewards, next_obs, terminated, truncated, steps)
-            )
-            if metrics:
-                self.latest.update(metrics)
-            if finished:
-                for ret, length in finished:
-                    self.records.train.append((steps, ret, length))
-            obs = nxt
-            if steps >= next_check:
-                next_check = steps + CHECK_EVERY
-                self.obs, self.env_steps = obs, steps
-                self._tick()
-            if steps >= self.next_log:
-                self.obs, self.env_steps = obs, steps
-                self._log_scalars()
-            if steps >= self.next_eval:
-                self.obs, self.env_steps = obs, steps
-                self._evaluate()
-            if steps >= self.next_checkpoint:
-                self.obs, self.env_steps = obs, steps
-                while self.next_checkpoint <= steps:
-                    self.next_checkpoint += sched.checkpoint_every
-                if self.on_checkpoint is not None:
-                    self.on_checkpoint(self)
-        self.obs, self.env_steps = obs, steps
+        try:
+            while steps < sched.budget:
+                actions = agent.act(obs, True)
+                nxt, rewards, next_obs, terminated, truncated, finished = envs.step(actions)
+                steps += n
+                metrics = agent.observe(
+                    Step(obs, actions, rewards, next_obs, terminated, truncated, steps)
+                )
+                if metrics:
+                    for key, value in metrics.items():
+                        if not math.isfinite(value):
+                            raise NonFiniteError(f"{key} is {value} at env step {steps}")
+                    self.latest.update(metrics)
+                if finished:
+                    for ret, length in finished:
+                        self.records.train.append((steps, ret, length))
+                obs = nxt
+                if steps >= next_check:
+                    next_check = steps + CHECK_EVERY
+                    self.obs, self.env_steps = obs, steps
+                    self._tick()
+                if steps >= self.next_log:
+                    self.obs, self.env_steps = obs, steps
+                    self._log_scalars()
+                if steps >= self.next_eval:
+                    self.obs, self.env_steps = obs, steps
+                    self._evaluate()
+                if steps >= self.next_checkpoint:
+                    while self.next_checkpoint <= steps:
+                        self.next_checkpoint += sched.checkpoint_every
+                    self._checkpoint_pending = True
+                if self._checkpoint_pending and (finished or self.snapshot_kind == "pickle"):
+                    # "reset" snapshots exist only right after an episode ended and reset
+                    self.obs, self.env_steps = obs, steps
+                    self._checkpoint_pending = False
+                    if self.on_checkpoint is not None:
+                        self.on_checkpoint(self)
+        finally:
+            self.obs, self.env_steps = obs, steps
         if not self.records.evals or self.records.evals[-1].env_step != steps:
             self._evaluate()
         return self.records
@@ -148,6 +177,7 @@ class Trainer:
                 self.tb.add_scalar(f"train/{key}", float(value), self.env_steps)
 
     def _evaluate(self) -> None:
+        check_finite(self.agent.state_dict(), self.env_steps)
         while self.next_eval <= self.env_steps:
             self.next_eval += self.schedule.eval_every
         normalize = self.envs.normalizer
@@ -170,10 +200,30 @@ class Trainer:
             "next_log": self.next_log,
             "next_checkpoint": self.next_checkpoint if math.isfinite(self.next_checkpoint) else -1,
             "latest": dict(self.latest),
+            "logged_episodes": self._logged_episodes,
             "evals": [r.row() for r in self.records.evals],
             "train": list(self.records.train),
             "scalars": list(self.records.scalars),
         }
+
+    def capture(self, final: bool = False) -> dict[str, Any]:
+        """Everything needed to continue this run from here (or its final state)."""
+        from runner.checkpoints import global_rng_state
+
+        return {
+            "agent": self.agent.state_dict(),
+            "envs": self.envs.state_dict("final" if final else self.snapshot_kind),
+            "loop": self.loop_state(),
+            "global_rngs": global_rng_state(),
+        }
+
+    def restore(self, state: dict[str, Any]) -> None:
+        from runner.checkpoints import load_global_rng_state
+
+        self.agent.load_state_dict(state["agent"])
+        self.obs = self.envs.load_state_dict(state["envs"])
+        self.load_loop_state(state["loop"])
+        load_global_rng_state(state["global_rngs"])
 
     def load_loop_state(self, state: dict[str, Any]) -> None:
         self.env_steps = int(state["env_steps"])
@@ -182,6 +232,7 @@ class Trainer:
         nc = int(state["next_checkpoint"])
         self.next_checkpoint = math.inf if nc < 0 else nc
         self.latest = dict(state["latest"])
+        self._logged_episodes = int(state["logged_episodes"])
         self.records = Records(
             evals=[EpisodeRecord(*row) for row in state["evals"]],
             train=[tuple(r) for r in state["train"]],

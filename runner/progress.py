@@ -77,3 +77,36 @@ class RunProgress:
     def close(self) -> None:
         if self._bar is not None:
             self._bar.stop()
+
+
+class QueueProgress:
+    """Progress of a run in a worker process, sent to the sweep's display (throttled)."""
+
+    def __init__(self, messages, every_s: float = 0.5):
+        self.messages = messages
+        self.every_s = every_s
+
+    def for_run(self, label: str, total: int) -> _QueueRun:
+        return _QueueRun(self.messages, label, total, self.every_s)
+
+
+class _QueueRun:
+    def __init__(self, messages, label: str, total: int, every_s: float):
+        self.messages, self.label, self.total, self.every_s = messages, label, total, every_s
+        self._last = 0.0
+        self._eval = None
+
+    def update(self, steps: int, steps_per_s: float | None = None) -> None:
+        now = time.perf_counter()
+        if now - self._last >= self.every_s or steps >= self.total:
+            self._last = now
+            self.messages.put({"run_id": self.label, "steps": steps, "total": self.total,
+                               "rate": steps_per_s or 0.0, "eval": self._eval})
+
+    def evaluation(self, steps: int, mean: float, stderr: float) -> None:
+        self._eval = (mean, stderr)
+        self._last = 0.0
+        self.update(steps)
+
+    def close(self) -> None:
+        pass

@@ -101,6 +101,7 @@ def provenance() -> dict[str, Any]:
 
         commit, dirty = _git_state()
         _PROVENANCE = {
+            "code_version": code_version(),
             "git_commit": commit,
             "git_dirty": dirty,
             "python": platform.python_version(),
@@ -115,6 +116,26 @@ def provenance() -> dict[str, Any]:
 
 def code_root() -> Path:
     return Path(__file__).resolve().parent.parent
+
+
+_CODE_VERSION: str | None = None
+
+
+def code_version() -> str:
+    """Hash of the python source of runner/, agents/ and envs/: what computes the results.
+
+    Unlike the git commit it also changes with uncommitted edits, and not with docs.
+    """
+    global _CODE_VERSION
+    if _CODE_VERSION is None:
+        h = hashlib.sha256()
+        root = code_root()
+        for pkg in ("runner", "agents", "envs"):
+            for f in sorted((root / pkg).rglob("*.py")):
+                h.update(str(f.relative_to(root)).encode())
+                h.update(f.read_bytes())
+        _CODE_VERSION = h.hexdigest()[:12]
+    return _CODE_VERSION
 
 
 def _git_state() -> tuple[str | None, bool | None]:

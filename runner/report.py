@@ -131,6 +131,13 @@ def compute_report(opts: argparse.Namespace, runner: Any = None) -> ReportData:
     env_cfgs, eval_settings = check_settings(by_cell, agents, envs)
     problems += missing_runs(sweep, agents, envs, by_cell)
 
+    # every check that can refuse comes before the random agent is run for the cache
+    env_grids = {e: align_env(agents, e, by_cell, opts.interpolate) for e in envs}
+    axis = efficiency_axis(envs, env_grids, opts.interpolate)
+    compared = [r for a in agents for e in envs for r in by_cell[(a, e)]]
+    raw = {r.run_id: scores.score_run(r, opts.score, opts.last_k) for r in compared}
+    targets = {e: scores.reference_score(env_cfgs[e]) for e in envs}
+
     references: dict[str, Reference] = {}
     random_shown: dict[str, list[Run]] = {}
     for env in envs:
@@ -138,20 +145,20 @@ def compute_report(opts: argparse.Namespace, runner: Any = None) -> ReportData:
                                                  eval_settings[env])
         problems += excluded
         references[env] = make_reference(sweep_dir.parent, env_cfgs[env], eval_settings[env],
-                                         randoms, opts, runner)
+                                         targets[env], randoms, opts, runner)
         if not any(RANDOM_AGENT == r.agent for a in agents for r in by_cell.get((a, env), [])):
             random_shown[env] = randoms
 
     shown = list(agents)
     random_labels = sorted({r.label for rs in random_shown.values() for r in rs})
     shown += [lab for lab in random_labels if lab not in shown]
-    used = [r for a in agents for e in envs for r in by_cell[(a, e)]]
-    used += [r for rs in random_shown.values() for r in rs]
-
-    run_scores = {}
+    used = compared + [r for rs in random_shown.values() for r in rs]
     for r in used:
-        s = scores.score_run(r, opts.score, opts.last_k)
-        run_scores[r.run_id] = (s, float(references[r.env_id].normalise(s)))
+        if r.run_id not in raw:  # random runs shown beside the compared agents: their
+            # schedule may be shorter, so last-k uses at most the evaluations they have
+            raw[r.run_id] = scores.score_run(r, opts.score, min(opts.last_k, r.curve.size))
+    run_scores = {r.run_id: (raw[r.run_id], float(references[r.env_key].normalise(
+        raw[r.run_id]))) for r in used}
 
     t0 = time.perf_counter()
     strata = {a: [np.array([run_scores[r.run_id][1] for r in by_cell[(a, e)]]) for e in envs]
@@ -164,8 +171,7 @@ def compute_report(opts: argparse.Namespace, runner: Any = None) -> ReportData:
     improvement = probability_pairs(agents, strata, opts)
     profiles = performance_profiles(agents, strata, opts)
     t1 = time.perf_counter()
-    env_grids = {e: align_env(agents, e, by_cell, opts.interpolate) for e in envs}
-    efficiency, x_label = efficiency_curves(agents, envs, by_cell, env_grids, references, opts)
+    efficiency, x_label = efficiency_curves(agents, envs, env_grids, axis, references, opts)
     t2 = time.perf_counter()
     per_env = per_env_table(shown, envs, by_cell, random_shown, run_scores, opts)
     env_curves = per_env_curves(agents, envs, by_cell, env_grids, opts)
@@ -199,7 +205,7 @@ def select_agents(sweep: scores.Sweep, wanted: str | None, include_random: bool)
     known = sorted(set(labels) | set(base) | {p.agent for p in sweep.problems if p.agent != "?"})
     if wanted:
         chosen: list[str] = []
-        for name in [w.strip() for w in wanted.split(",") if w.strip()]:
+        for name in split_names(wanted):
             if name in labels:
                 options = [name]
             elif name in base:
@@ -220,18 +226,33 @@ def select_agents(sweep: scores.Sweep, wanted: str | None, include_random: bool)
     return chosen
 
 
+def split_names(text: str) -> list[str]:
+    """Comma-separated names; commas inside [...] (variant labels) do not split."""
+    names, depth, current = [], 0, ""
+    for ch in text:
+        depth += (ch == "[") - (ch == "]")
+        if ch == "," and depth == 0:
+            names.append(current.strip())
+            current = ""
+        else:
+            current += ch
+    names.append(current.strip())
+    return [n for n in names if n]
+
+
 def _is_random(sweep: scores.Sweep, label: str) -> bool:
     return any(r.label == label and r.agent == RANDOM_AGENT for r in sweep.runs)
 
 
 def select_envs(sweep: scores.Sweep, agents: list[str], wanted: str | None) -> list[str]:
-    present = sorted({r.env_id for r in sweep.runs if r.label in agents}
+    present = sorted({r.env_key for r in sweep.runs if r.label in agents}
                      | {p.env for p in sweep.problems if p.agent in agents and p.env != "?"})
     if not wanted:
         return present
-    names = {r.env_config: r.env_id for r in sweep.runs}
+    names = {r.env_config: r.env_key for r in sweep.runs}
+    names.update({r.env_id: r.env_key for r in sweep.runs if r.env_id == r.env_key})
     chosen = []
-    for name in [w.strip() for w in wanted.split(",") if w.strip()]:
+    for name in split_names(wanted):
         env = name if name in present else names.get(name)
         if env not in present:
             raise ConfigError("--envs", f"unknown env {name!r} (in this sweep: "
@@ -245,14 +266,14 @@ def group_runs(runs: list[Run], agents: list[str], envs: list[str]) -> dict:
     cells: dict[tuple[str, str], list[Run]] = {(a, e): [] for a in agents for e in envs}
     seen: dict[tuple[str, str, int], str] = {}
     for r in runs:
-        if (r.label, r.env_id) not in cells:
+        if (r.label, r.env_key) not in cells:
             continue
-        key = (r.label, r.env_id, r.seed)
+        key = (r.label, r.env_key, r.seed)
         if key in seen:
-            raise ConfigError("seed", f"{r.label} on {r.env_id} has two complete runs with "
+            raise ConfigError("seed", f"{r.label} on {r.env_key} has two complete runs with "
                               f"seed {r.seed} ({seen[key]}, {r.run_id}); remove one")
         seen[key] = r.run_id
-        cells[(r.label, r.env_id)].append(r)
+        cells[(r.label, r.env_key)].append(r)
     for cell in cells.values():
         cell.sort(key=lambda r: r.seed)
     return cells
@@ -328,7 +349,7 @@ def matching_random_runs(runs: list[Run], env: str, env_cfg: dict, settings: dic
     wanted = (settings["episodes"], settings["deterministic"])
     use, excluded = [], []
     for r in runs:
-        if r.env_id != env or r.agent != RANDOM_AGENT:
+        if r.env_key != env or r.agent != RANDOM_AGENT:
             continue
         if r.env_settings == scores.env_settings(env_cfg) and r.eval_settings == wanted:
             use.append(r)
@@ -339,10 +360,12 @@ def matching_random_runs(runs: list[Run], env: str, env_cfg: dict, settings: dic
     return sorted(use, key=lambda r: r.seed), excluded
 
 
-def make_reference(results_dir: Path, env_cfg: dict, settings: dict, randoms: list[Run],
-                   opts: argparse.Namespace, runner: Any) -> Reference:
+def make_reference(results_dir: Path, env_cfg: dict, settings: dict, target: tuple,
+                   randoms: list[Run], opts: argparse.Namespace, runner: Any) -> Reference:
+    """Random score (from the sweep's random runs, else measured into the cache) and the
+    reference ``target`` = (value, source, detail) of one env."""
     env_id = str(env_cfg.get("id"))
-    reference, source, detail = scores.reference_score(env_cfg)
+    reference, source, detail = target
     if randoms:
         interval, n = scores.random_from_runs(randoms, opts.confidence)
         origin, ids = "sweep", [r.run_id for r in randoms]
@@ -390,32 +413,36 @@ def performance_profiles(agents: list[str], strata: dict, opts: argparse.Namespa
     return out
 
 
-def efficiency_curves(agents, envs, by_cell, env_grids, references, opts) -> tuple[dict, str]:
-    """IQM of normalised scores at each evaluation, pooled over envs. Envs on one schedule
-    use env steps; otherwise the x axis is the fraction of each env's training budget."""
-    grids = [env_grids[e][0] for e in envs]  # (grid, curves, rows) per env
+def efficiency_axis(envs: list[str], env_grids: dict, interpolate: bool) -> tuple:
+    """(x, label, per-env x or None) of the sample-efficiency curve. Envs on one schedule
+    use env steps; otherwise the x axis is the fraction of each env's training budget,
+    which must coincide across envs unless ``interpolate``."""
+    grids = [env_grids[e][0] for e in envs]
     if all(g.shape == grids[0].shape and np.array_equal(g, grids[0]) for g in grids):
-        x, label, common = grids[0], "env steps", None
-    else:
-        fractions = [g / g[-1] for g in grids]
-        same = all(f.shape == fractions[0].shape and np.allclose(f, fractions[0])
-                   for f in fractions)
-        if not same and not opts.interpolate:
-            raise ConfigError("eval.every", "envs have different evaluation schedules, so the "
-                              "sample-efficiency curve needs --interpolate (onto fractions of "
-                              "each env's budget)")
-        label = "fraction of training budget"
-        x = fractions[0] if same else np.unique(np.concatenate(fractions))
-        x = x[x >= max(f[0] for f in fractions)]
-        common = fractions
+        return grids[0], "env steps", None
+    fractions = [g / g[-1] for g in grids]
+    same = all(f.shape == fractions[0].shape and np.allclose(f, fractions[0])
+               for f in fractions)
+    if not same and not interpolate:
+        raise ConfigError("eval.every", "envs have different evaluation schedules, so the "
+                          "sample-efficiency curve needs --interpolate (onto fractions of "
+                          "each env's budget)")
+    x = fractions[0] if same else np.unique(np.concatenate(fractions))
+    x = x[x >= max(f[0] for f in fractions)]
+    return x, "fraction of training budget", fractions
+
+
+def efficiency_curves(agents, envs, env_grids, axis, references, opts) -> tuple[dict, str]:
+    """IQM of normalised scores at each evaluation, pooled over all runs of all envs."""
+    x, label, per_env_x = axis
     out = {}
     for a in agents:
         per_env = []
         for j, e in enumerate(envs):
-            grid, curves, rows = env_grids[e]
+            _, curves, rows = env_grids[e]
             norm = references[e].normalise(curves[rows[a]])
-            if common is not None:
-                norm = np.stack([np.interp(x, common[j], c) for c in norm])
+            if per_env_x is not None:
+                norm = np.stack([np.interp(x, per_env_x[j], c) for c in norm])
             per_env.append(norm)
         point, low, high = stats.iqm_curve(per_env, opts.resamples, opts.confidence,
                                            _rng(opts.seed, "efficiency", a))
@@ -497,7 +524,7 @@ def summary_dict(data: ReportData) -> dict[str, Any]:
 def scores_csv(data: ReportData) -> str:
     from runner.records import csv_text
 
-    rows = [(data.sweep.name, r.run_id, r.label, r.env_id, r.seed, *data.run_scores[r.run_id])
+    rows = [(data.sweep.name, r.run_id, r.label, r.env_key, r.seed, *data.run_scores[r.run_id])
             for r in data.runs]
     return csv_text(("sweep", "run_id", "agent", "env", "seed", "score", "normalised_score"),
                     rows)
@@ -508,9 +535,9 @@ def curves_csv(data: ReportData) -> str:
 
     rows = []
     for r in data.runs:
-        norm = data.references[r.env_id].normalise(r.curve)
+        norm = data.references[r.env_key].normalise(r.curve)
         for step, value, n in zip(r.steps, r.curve, norm, strict=True):
-            rows.append((data.sweep.name, r.run_id, r.label, r.env_id, r.seed, int(step),
+            rows.append((data.sweep.name, r.run_id, r.label, r.env_key, r.seed, int(step),
                          float(value), float(n)))
     return csv_text(("sweep", "run_id", "agent", "env", "seed", "env_step", "mean_return",
                      "normalised_return"), rows)

@@ -9,7 +9,8 @@ is on disk.
 from __future__ import annotations
 
 import importlib
-import io
+import json
+import math
 import sys
 import time
 import traceback
@@ -18,16 +19,18 @@ from pathlib import Path
 from typing import Any
 
 import torch
+from filelock import FileLock, Timeout
 
 from agents.base import Agent, ConfigError, build_config
 from envs.build import EnvSpec, make_eval_env, make_train_envs, parse_env_config
-from runner import records
+from runner import checkpoints, records
 from runner.config import check_run_config
 from runner.loop import Schedule, Trainer
 from runner.progress import RunProgress
 from runner.seeding import RunSeeds, derive_seeds, seed_globals
 
 CHECKPOINT = "checkpoint.pt"
+LOCK = ".lock"
 
 
 @dataclass
@@ -54,11 +57,20 @@ def load_agent_class(entry: Any) -> type[Agent]:
     module_name, _, cls_name = entry.rpartition(":")
     try:
         if module_name.endswith(".py"):
-            spec = importlib.util.spec_from_file_location(Path(module_name).stem, module_name)
-            if spec is None or spec.loader is None:
+            path = Path(module_name).resolve()
+            if not path.is_file():
                 raise ImportError(f"no such file {module_name}")
-            module = importlib.util.module_from_spec(spec)
-            spec.loader.exec_module(module)
+            unique = f"seedsweep_agent_{path.stem}_{abs(hash(str(path))):x}"
+            module = sys.modules.get(unique)
+            if module is None:
+                spec = importlib.util.spec_from_file_location(unique, path)
+                module = importlib.util.module_from_spec(spec)
+                sys.modules[unique] = module  # dataclasses look their module up here
+                try:
+                    spec.loader.exec_module(module)
+                except BaseException:
+                    del sys.modules[unique]
+                    raise
         else:
             module = importlib.import_module(module_name)
     except (ImportError, FileNotFoundError) as err:
@@ -140,26 +152,55 @@ def write_records(run_dir: Path, trainer: Trainer) -> None:
                               records.csv_text(records.SCALAR_COLUMNS, r.scalars))
 
 
-def save_state(path: Path, trainer: Trainer) -> None:
-    """Final (or periodic) checkpoint: agent state, normaliser, loop counters and records."""
-    state = {
-        "agent": trainer.agent.state_dict(),
-        "normalizer": trainer.envs.normalizer.state_dict() if trainer.envs.normalizer else None,
-        "loop": trainer.loop_state(),
-    }
-    buf = io.BytesIO()
-    torch.save(state, buf)
-    records.atomic_write_bytes(path, buf.getvalue())
+class RunBusy(RuntimeError):
+    """Another process holds this run's lock: it is running elsewhere right now."""
 
 
-def execute(p: PreparedRun, progress: str = "auto") -> dict[str, Any]:
-    """Train, evaluate and record one prepared run; returns its final ``run.json``."""
+def read_run_json(run_dir: Path) -> dict[str, Any] | None:
+    try:
+        return json.loads((run_dir / "run.json").read_text())
+    except (OSError, ValueError):
+        return None
+
+
+def lock_for(run_dir: Path) -> FileLock:
+    """The run's lock: an OS file lock, so a crashed holder releases it by dying."""
+    return FileLock(str(run_dir / LOCK), timeout=0)
+
+
+def execute(p: PreparedRun, progress: Any = "auto", retry_failed: bool = False,
+            log=None) -> dict[str, Any]:
+    """Train, evaluate and record one prepared run; returns its final ``run.json``.
+
+    A complete run is skipped; a failed one too unless ``retry_failed``; an interrupted
+    one resumes from its newest usable checkpoint. Raises RunBusy if the run's lock is held.
+    """
+    log = log or (lambda msg: print(msg, file=sys.stderr))
+    run_dir = p.run_dir
+    run_dir.mkdir(parents=True, exist_ok=True)
+    lock = lock_for(run_dir)
+    try:
+        lock.acquire()
+    except Timeout:
+        raise RunBusy(f"{p.run_id} is running in another process") from None
+    try:
+        existing = read_run_json(run_dir)
+        if existing and existing.get("status") == "complete":
+            return {**existing, "skipped": True}
+        if existing and existing.get("status") == "failed" and not retry_failed:
+            return {**existing, "skipped": True}
+        return _train(p, progress, log, existing)
+    finally:
+        lock.release()
+
+
+def _train(p: PreparedRun, progress: Any, log, existing: dict[str, Any] | None) -> dict[str, Any]:
     from omegaconf import OmegaConf
 
     run_dir = p.run_dir
-    run_dir.mkdir(parents=True, exist_ok=True)
     (run_dir / "error.log").unlink(missing_ok=True)
-    started = records.now_iso()
+    started = (existing or {}).get("started") or records.now_iso()
+    prior_wall = float((existing or {}).get("wall_s") or 0.0)
     t0 = time.perf_counter()
     records.atomic_write_text(run_dir / "config.yaml", OmegaConf.to_yaml(OmegaConf.create(p.config)))
     records.atomic_write_json(run_dir / "run.json", _run_json(p, "running", started))
@@ -178,46 +219,81 @@ def execute(p: PreparedRun, progress: str = "auto") -> dict[str, Any]:
             deterministic=ev["deterministic"], log_every=p.config["log"]["every"],
             checkpoint_every=p.config["checkpoint"]["every"],
         )
-        from torch.utils.tensorboard import SummaryWriter
-
-        tb = SummaryWriter(log_dir=str(run_dir / "tb"))
-        bar = RunProgress(p.label, schedule.budget, mode=progress)
+        bar = (RunProgress(p.label, schedule.budget, mode=progress) if isinstance(progress, str)
+               else progress.for_run(p.label, schedule.budget))
         trainer = Trainer(
             agent, envs, eval_env, schedule, p.seeds.train_env, p.seeds.eval_episodes, bar,
             on_evaluation=lambda t: write_records(run_dir, t),
-            on_checkpoint=lambda t: save_state(run_dir / CHECKPOINT, t),
-            tb=tb,
+            on_checkpoint=lambda t: checkpoints.save(run_dir, t.capture(), t.env_steps),
         )
+        if schedule.checkpoint_every:
+            trainer.snapshot_kind = envs.snapshot_kind()
+            envs.track_resets = trainer.snapshot_kind == "reset"
+            if trainer.snapshot_kind == "none":
+                trainer.next_checkpoint = math.inf
+                log(f"seedsweep: warning: {p.run_id}: its envs cannot be saved "
+                    "(async vector env of unpicklable envs); no training checkpoints")
+        resumed = _resume(trainer, run_dir, log) if existing else None
+        from torch.utils.tensorboard import SummaryWriter
+
+        trainer.tb = SummaryWriter(log_dir=str(run_dir / "tb"),
+                                   purge_step=trainer.env_steps if resumed else None)
         loop_start = time.perf_counter()
         try:
             trainer.run()
         finally:
             loop_s = time.perf_counter() - loop_start
             bar.close()
-            tb.close()
+            trainer.tb.close()
             envs.close()
             eval_env.close()
         write_records(run_dir, trainer)
-        save_state(run_dir / CHECKPOINT, trainer)
+        final = checkpoints.to_bytes(trainer.capture(final=True))
+        records.atomic_write_bytes(run_dir / CHECKPOINT, final)
         last = trainer.records.evals[-1].env_step
         finals = [e.ret for e in trainer.records.evals if e.env_step == last]
         doc = _run_json(
             p, "complete", started, env_steps=trainer.env_steps,
-            final_score=sum(finals) / len(finals), wall_s=round(time.perf_counter() - t0, 3),
-            loop_s=round(loop_s, 3),
-            finished=records.now_iso(),
+            final_score=sum(finals) / len(finals),
+            wall_s=round(prior_wall + time.perf_counter() - t0, 3), loop_s=round(loop_s, 3),
+            finished=records.now_iso(), resumed_from=resumed,
         )
         records.atomic_write_json(run_dir / "run.json", doc)
+        checkpoints.clear(run_dir)
+        if loop_s > 0 and not resumed:
+            from runner.estimate import remember
+
+            remember(p, loop_s / max(1, trainer.env_steps))
         return doc
     except BaseException as err:
         reason = f"{type(err).__name__}: {err}".splitlines()[0]
+        if isinstance(err, KeyboardInterrupt):
+            reason = "interrupted (KeyboardInterrupt)"
         records.atomic_write_text(run_dir / "error.log", traceback.format_exc())
         doc = _run_json(
             p, "failed", started, env_steps=trainer.env_steps if trainer else 0,
-            wall_s=round(time.perf_counter() - t0, 3), finished=records.now_iso(), error=reason,
+            wall_s=round(prior_wall + time.perf_counter() - t0, 3), finished=records.now_iso(),
+            error=reason,
         )
         records.atomic_write_json(run_dir / "run.json", doc)
         raise
+
+
+def _resume(trainer: Trainer, run_dir: Path, log) -> int | None:
+    """Continue from the newest usable checkpoint; returns its env step, or None."""
+    while True:
+        found = checkpoints.load_latest(run_dir, log)
+        if found is None:
+            return None
+        state, path = found
+        try:
+            trainer.restore(state)
+        except Exception as err:  # a checkpoint that cannot be restored is not continued from
+            log(f"seedsweep: warning: cannot restore {path.name} ({err}); trying an older one")
+            path.unlink(missing_ok=True)
+            continue
+        log(f"seedsweep: {run_dir.name}: resuming from env step {trainer.env_steps}")
+        return trainer.env_steps
 
 
 def main_error(message: str) -> int:

@@ -30,7 +30,7 @@ from runner import stats
 
 EVAL_HEADER = ["env_step", "episode", "return", "discounted_return", "length", "episode_seed"]
 RANDOM_AGENT = "random"
-SKIPPED_FOLDERS = ("report",)  # our own output; names starting with "_" or "." are skipped too
+SKIPPED_FOLDERS = ("report",)  # our own output; "." folders (temporary) are skipped too
 SCORE_METHODS = ("final", "last-k", "auc")
 # wrappers that leave the dynamics and the evaluation rewards of a tabular env unchanged
 ORACLE_SAFE_WRAPPERS = {"one_hot", "frame_stack", "time_limit", "normalize_obs",
@@ -50,6 +50,8 @@ class Run:
     seed: int
     config: dict[str, Any]
     record: dict[str, Any]
+    env_key: str  # how reports name the env: the gymnasium id, or id[config] when a sweep
+    # uses one id with several env configs (e.g. two FrozenLake maps)
     steps: np.ndarray  # (E,) env steps of the evaluations
     curve: np.ndarray  # (E,) mean undiscounted return of each evaluation
     last_returns: np.ndarray  # episode returns of the last evaluation
@@ -74,6 +76,7 @@ class Problem:
     seed: Any
     status: str
     reason: str
+    env_config: str = ""
 
 
 @dataclass
@@ -178,11 +181,13 @@ def load_sweep(path: Path) -> Sweep:
     runs: list[Run] = []
     problems: list[Problem] = []
     folders = [p for p in sorted(path.iterdir()) if p.is_dir()
-               and not p.name.startswith(("_", ".")) and p.name not in SKIPPED_FOLDERS]
+               and not p.name.startswith(".") and p.name not in SKIPPED_FOLDERS]
     seen_records = 0
     for folder in folders:
         run_json = folder / "run.json"
         if not run_json.exists():
+            if folder.name.startswith("_"):
+                continue  # tool folders such as _reference_cache
             if (folder / "config.yaml").exists() or (folder / "eval.csv").exists():
                 problems.append(Problem(folder.name, "?", "?", "?", "missing",
                                         "no run.json (never started or not a run folder)"))
@@ -193,7 +198,8 @@ def load_sweep(path: Path) -> Sweep:
         if status != "complete":
             reason = rec.get("error") or f"status is {status!r}"
             problems.append(Problem(str(rec.get("run_id", folder.name)), str(rec.get("agent")),
-                                    str(rec.get("env")), rec.get("seed"), str(status), reason))
+                                    str(rec.get("env")), rec.get("seed"), str(status), reason,
+                                    str(rec.get("env_config") or "")))
             continue
         runs.append(_load_complete(folder, rec))
     if seen_records == 0:
@@ -201,7 +207,24 @@ def load_sweep(path: Path) -> Sweep:
     if not runs:
         raise ConfigError("sweep", f"{path} has no complete runs ({len(problems)} not complete)")
     label_variants(runs)
+    name_envs(runs, problems)
     return Sweep(path, runs, problems)
+
+
+def name_envs(runs: list[Run], problems: list[Problem]) -> None:
+    """Env keys: the gymnasium id, or ``id[config]`` where one id has several env configs."""
+    configs: dict[str, set[str]] = defaultdict(set)
+    for r in runs:
+        configs[r.env_id].add(r.env_config)
+    for p in problems:
+        if p.env_config and p.env != "?":
+            configs[p.env].add(p.env_config)
+    shared = {env_id for env_id, names in configs.items() if len(names) > 1}
+    for r in runs:
+        r.env_key = f"{r.env_id}[{r.env_config}]" if r.env_id in shared else r.env_id
+    for p in problems:
+        if p.env in shared:
+            p.env = f"{p.env}[{p.env_config}]"
 
 
 def _load_complete(folder: Path, rec: dict[str, Any]) -> Run:
@@ -219,8 +242,8 @@ def _load_complete(folder: Path, rec: dict[str, Any]) -> Run:
     return Run(
         run_id=str(rec["run_id"]), path=folder, agent=str(rec["agent"]), label=str(rec["agent"]),
         env_id=str(rec["env"]), env_config=str(rec.get("env_config") or rec["env"]),
-        seed=int(rec["seed"]), config=config, record=rec, steps=steps, curve=curve,
-        last_returns=per_eval[-1],
+        env_key=str(rec["env"]), seed=int(rec["seed"]), config=config, record=rec, steps=steps,
+        curve=curve, last_returns=per_eval[-1],
     )
 
 
@@ -275,7 +298,9 @@ def score_curve(steps: np.ndarray, curve: np.ndarray, method: str, last_k: int =
     raise ConfigError("--score", f"unknown method {method!r} (allowed: {', '.join(SCORE_METHODS)})")
 
 
-def align_curves(runs: Sequence[Run], interpolate: bool, what: str) -> tuple[np.ndarray, np.ndarray]:
+def align_curves(
+    runs: Sequence[Run], interpolate: bool, what: str
+) -> tuple[np.ndarray, np.ndarray]:
     """Curves of ``runs`` on one grid of env steps: (grid, (n_runs, n_points)).
     Different schedules are refused unless ``interpolate``, which linearly interpolates every
     run onto the union of their steps inside the range all runs cover."""
@@ -327,6 +352,13 @@ class Reference:
     source: str  # "user" | "oracle" | "env_spec"
     detail: str
 
+    @property
+    def random_note(self) -> str:
+        if self.random_low == self.random_high:
+            return (f"all {self.random_episodes} random episodes returned {self.random:g}: the "
+                    "interval is degenerate; more random episodes would narrow the estimate")
+        return ""
+
     def normalise(self, x: np.ndarray | float) -> np.ndarray | float:
         return (np.asarray(x, dtype=float) - self.random) / (self.reference - self.random)
 
@@ -338,10 +370,12 @@ class Reference:
             "random_source": "measured",
             "random_from": self.random_source,
             "random_runs": self.random_runs,
+            "random_note": self.random_note,
             "reference": self.reference,
             "source": self.source,
             "detail": self.detail,
             "env_config": self.env_config,
+            "gymnasium_id": self.env_id,
         }
 
 
@@ -424,22 +458,18 @@ def hydra_value(value: Any) -> str:
     raise ConfigError("env", f"cannot pass {value!r} as an override")
 
 
-def random_overrides(env_cfg: dict[str, Any], deterministic: bool, episodes: int,
-                     sweep: str) -> list[str]:
+def random_overrides(env_cfg: dict[str, Any], deterministic: bool, episodes: int) -> list[str]:
     """Overrides that run the random agent on exactly this env under this protocol."""
     settings = env_settings(env_cfg)
     horizon = settings["max_episode_steps"]
     overrides = [  # the random agent learns nothing: a one-step budget, then one evaluation
         "agent=random", f"env={env_cfg.get('name')}", "seed=0", "steps=1",
         "eval.every=1", f"eval.episodes={episodes}",
-        f"eval.deterministic={hydra_value(deterministic)}", f"sweep={sweep}",
+        f"eval.deterministic={hydra_value(deterministic)}",
         f"env.max_episode_steps={hydra_value(horizon)}",
         f"env.wrappers={hydra_value(list(settings['wrappers']))}", "~env.kwargs",
+        f"+env.kwargs={hydra_value(dict(settings['kwargs']))}",
     ]
-    if settings["kwargs"]:
-        overrides.append(f"+env.kwargs={hydra_value(dict(settings['kwargs']))}")
-    else:
-        overrides.append("+env.kwargs={}")
     return overrides
 
 
@@ -448,37 +478,50 @@ def random_from_cache(
     confidence: float, runner: Callable[..., Path] | None = None,
 ) -> tuple[stats.Interval, int, str]:
     """Random score measured by running the random agent under the same protocol, kept in
-    ``<results_dir>/_reference_cache/`` (keyed by env settings and evaluation settings)."""
+    ``<results_dir>/_reference_cache/<env>-<key>/`` (key: hash of the env settings, the
+    evaluation settings and the episode count). The run goes to the runner's default sweep
+    folder inside that folder; the run id already depends on the whole config."""
     from filelock import FileLock
 
     settings = env_settings(env_cfg)
-    key = cache_key(settings, deterministic, episodes)
+    name = f"{env_cfg.get('name')}-{cache_key(settings, deterministic, episodes)}"
     cache = results_dir / "_reference_cache"
-    sweep = f"{env_cfg.get('name')}-{key}"
     cache.mkdir(parents=True, exist_ok=True)
-    with FileLock(str(cache / f"{sweep}.lock")):
-        folder = _cached_run(cache / sweep)
+    with FileLock(str(cache / f"{name}.lock")):
+        folder = _cached_run(cache / name)
         if folder is None:
-            if runner is None:
-                from runner.api import run as runner
-            folder = runner(random_overrides(env_cfg, deterministic, episodes, sweep),
-                            results_dir=str(cache))
-        run = _load_complete(Path(folder), read_run_json(Path(folder) / "run.json"))
-    if env_settings(run.config.get("env") or {}) != settings or run.eval_settings != (
-        episodes, deterministic):
+            folder = _measure_random(cache / name, env_cfg, deterministic, episodes, runner)
+        run = _load_complete(folder, read_run_json(folder / "run.json"))
+    if run.env_settings != settings or run.eval_settings != (episodes, deterministic):
         raise ConfigError("env", f"the cached random run {folder} does not match the env "
                           f"settings of {settings['id']}; add random-agent runs to the sweep")
     interval, n = random_from_runs([run], confidence)
     return interval, n, run.run_id
 
 
+def _measure_random(folder: Path, env_cfg: dict[str, Any], deterministic: bool, episodes: int,
+                    runner: Callable[..., Path] | None) -> Path:
+    if runner is None:
+        from runner.api import run as runner
+    overrides = random_overrides(env_cfg, deterministic, episodes)
+    try:
+        return Path(runner(overrides, results_dir=str(folder)))
+    except ConfigError as err:
+        raise ConfigError(err.field, f"measuring the random score of {env_cfg.get('id')} "
+                          f"failed ({str(err).split(': ', 1)[-1]}); add random-agent runs "
+                          "to the sweep") from None
+    except Exception as err:  # a failed run: say so in one line, the run folder has the log
+        raise ConfigError("random", f"the random-agent run on {env_cfg.get('id')} failed "
+                          f"({_first(err)}); see {folder}") from None
+
+
 def _cached_run(folder: Path) -> Path | None:
+    """A complete cached random run below ``folder`` (any sweep sub-folder), if one exists."""
     if not folder.is_dir():
         return None
-    for run_dir in sorted(folder.iterdir()):
-        rec_path = run_dir / "run.json"
-        if rec_path.exists() and read_run_json(rec_path).get("status") == "complete":
-            return run_dir
+    for rec_path in sorted(folder.glob("**/run.json")):
+        if read_run_json(rec_path).get("status") == "complete":
+            return rec_path.parent
     return None
 
 

@@ -1,43 +1,159 @@
-"""A sweep: the cross product of override values, every run checked before any starts."""
+"""A sweep: the cross product of override values, every run checked before any starts.
+
+The runs are ordered seed-major (every agent × env × setting at seed 0, then at seed 1,
+...), so a sweep stopped halfway has balanced seeds. ``sweep.json`` in the sweep folder
+lists the planned runs (what ``seedsweep status`` calls pending) and the code version
+they were made with; a sweep refuses to add runs of another code version unless asked.
+"""
 
 from __future__ import annotations
 
 import sys
 from collections.abc import Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from filelock import FileLock
 
 from agents.base import ConfigError
+from runner import records
 from runner.config import compose, expand
-from runner.run import PreparedRun, execute, prepare
+from runner.run import PreparedRun, read_run_json
+
+MANIFEST = "sweep.json"
 
 
-def plan(overrides: Sequence[str], multirun: bool = False) -> list[PreparedRun]:
+@dataclass
+class SweepOptions:
+    workers: int = 0  # 0: number of physical cores
+    retry_failed: bool = False
+    allow_mixed_code: bool = False
+    progress: str = "auto"
+    estimate: bool = True
+    launcher: str = "local"  # local | submitit | slurm
+    slurm: dict[str, Any] = field(default_factory=dict)
+    timeout_min: float = 0.0  # submitit launchers: give up waiting after this (0: never)
+
+
+def plan(overrides: Sequence[str], multirun: bool = False,
+         extra_dirs: Sequence[Path] = ()) -> list[PreparedRun]:
     """Expand and check every run of a sweep; raises ConfigError before anything is written."""
+    from runner.run import prepare
+
     combos = expand(overrides, multirun)
-    planned = [prepare(compose(c)) for c in combos]
-    if not planned:
+    if not combos:
         raise ConfigError("overrides", "the sweep is empty")
-    seen: dict[str, list[str]] = {}
-    for p, c in zip(planned, combos, strict=True):
+    planned = [prepare(compose(c, extra_dirs)) for c in combos]
+    seen: set[str] = set()
+    for p in planned:
         if p.run_id in seen:
             raise ConfigError("seed", f"two sweep points give the same run ({p.run_id}); "
                               "remove duplicate values")
-        seen[p.run_id] = c
-    return planned
+        seen.add(p.run_id)
+    sweep_dirs = {p.run_dir.parent for p in planned}
+    if len(sweep_dirs) > 1:
+        raise ConfigError("sweep", "one sweep writes to one folder; do not sweep over sweep= "
+                          "or results_dir=")
+    return interleave(planned)
 
 
-def run_planned(planned: list[PreparedRun], progress: str = "auto") -> int:
-    """Run one after another; a failed run does not stop the others. Exit 1 if any failed."""
-    failed = []
-    for i, p in enumerate(planned, 1):
-        if len(planned) > 1:
-            print(f"seedsweep: run {i}/{len(planned)}: {p.run_id}", file=sys.stderr)
-        try:
-            execute(p, progress=progress)
-        except Exception as err:  # recorded in the run folder; the sweep goes on
-            failed.append(p.run_id)
-            print(f"seedsweep: run {p.run_id} failed: {type(err).__name__}: {err} "
-                  f"(see {p.run_dir / 'error.log'})", file=sys.stderr)
-    sweep_dir = planned[0].run_dir.parent
-    print(f"seedsweep: {len(planned) - len(failed)}/{len(planned)} runs complete; "
-          f"results in {sweep_dir}")
-    return 1 if failed else 0
+def interleave(planned: list[PreparedRun]) -> list[PreparedRun]:
+    """Seed-major order: all settings at the first seed, then the next seed, ..."""
+    seeds = sorted({p.config["seed"] for p in planned})
+    rank = {s: i for i, s in enumerate(seeds)}
+    return sorted(planned, key=lambda p: rank[p.config["seed"]])  # stable: keeps combo order
+
+
+def sweep_dir(planned: list[PreparedRun]) -> Path:
+    return planned[0].run_dir.parent
+
+
+def check_code_version(folder: Path, allow_mixed: bool) -> None:
+    """Refuse to mix runs of different code versions in one sweep folder."""
+    if allow_mixed or not folder.is_dir():
+        return
+    current = records.code_version()
+    found = set()
+    manifest = read_manifest(folder)
+    if manifest and manifest.get("code_version"):
+        found.add(manifest["code_version"])
+    for run_json in folder.glob("*/run.json"):
+        doc = read_run_json(run_json.parent) or {}
+        version = (doc.get("provenance") or {}).get("code_version")
+        if version:
+            found.add(version)
+    others = sorted(found - {current})
+    if others:
+        raise ConfigError(
+            "sweep", f"{folder} holds runs made by code version {others[0]} and this is "
+            f"{current}; use another sweep=NAME, or pass --allow-mixed-code to add to it")
+
+
+def read_manifest(folder: Path) -> dict[str, Any] | None:
+    import json
+
+    try:
+        return json.loads((folder / MANIFEST).read_text())
+    except (OSError, ValueError):
+        return None
+
+
+def write_manifest(folder: Path, planned: list[PreparedRun], overrides: Sequence[str]) -> None:
+    """Add this launch's runs to ``sweep.json`` (under a lock: sweeps may share a folder)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    with FileLock(str(folder / ".sweep.lock"), timeout=60):
+        doc = read_manifest(folder) or {"runs": {}, "launches": []}
+        doc["code_version"] = records.code_version()
+        for p in planned:
+            doc["runs"][p.run_id] = {"agent": p.config["agent"]["name"], "env": p.env.id,
+                                     "env_config": p.env.name, "seed": p.config["seed"],
+                                     "steps": p.config["steps"]}
+        doc["launches"].append({"at": records.now_iso(), "overrides": list(overrides),
+                                "runs": len(planned)})
+        records.atomic_write_json(folder / MANIFEST, doc)
+
+
+def classify(planned: list[PreparedRun], retry_failed: bool) -> tuple[list, list, list]:
+    """(to_run, complete, failed_skipped) from what is on disk now."""
+    to_run, complete, failed = [], [], []
+    for p in planned:
+        status = (read_run_json(p.run_dir) or {}).get("status")
+        if status == "complete":
+            complete.append(p)
+        elif status == "failed" and not retry_failed:
+            failed.append(p)
+        else:
+            to_run.append(p)
+    return to_run, complete, failed
+
+
+def run_sweep(planned: list[PreparedRun], overrides: Sequence[str], opts: SweepOptions) -> int:
+    """Run what is left of a sweep; exit status 0 if every run is complete, else 1."""
+    from runner.workers import default_workers, run_local
+
+    folder = sweep_dir(planned)
+    check_code_version(folder, opts.allow_mixed_code)
+    to_run, complete, failed = classify(planned, opts.retry_failed)
+    workers = opts.workers or default_workers()
+    say = lambda msg: print(msg, file=sys.stderr, flush=True)  # noqa: E731
+    say(f"seedsweep: sweep {folder.name}: {len(planned)} runs — {len(complete)} complete, "
+        f"{len(failed)} failed (kept; --retry-failed reruns them), {len(to_run)} to run")
+    if to_run and opts.estimate:
+        from runner.estimate import estimate_wall_time
+
+        say(estimate_wall_time(to_run, workers if opts.launcher == "local" else len(to_run)))
+    write_manifest(folder, planned, overrides)
+    if opts.launcher == "local":
+        outcome = run_local(to_run, workers, opts)
+    else:
+        from runner.slurm import run_submitit
+
+        outcome = run_submitit(to_run, opts)
+    done = len(complete) + outcome.complete
+    bad = len(failed) + len(outcome.failed)
+    say(f"seedsweep: sweep {folder.name}: {done}/{len(planned)} complete, {bad} failed, "
+        f"{len(outcome.busy)} running elsewhere; results in {folder}")
+    for run_id, reason in outcome.failed:
+        say(f"  failed: {run_id}: {reason}")
+    return 0 if done == len(planned) else 1

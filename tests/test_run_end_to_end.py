@@ -102,5 +102,5 @@ def test_multirun_runs_each_point(tmp_path, capsys):
     code = main(["run", "-m", "agent=random", "seed=0,1,2", "steps=200", "eval.every=100",
                  "eval.episodes=2", f"results_dir={tmp_path}", "sweep=m", "--progress=quiet"])
     assert code == 0
-    runs = sorted(p.name for p in (tmp_path / "m").iterdir())
+    runs = sorted(p.name for p in (tmp_path / "m").iterdir() if p.is_dir())
     assert [r.split("-")[2] for r in runs] == ["s0", "s1", "s2"]

@@ -7,6 +7,8 @@ Usage::
     with LocalSlurm() as cluster:
         executor = cluster.executor(tmp_path / "submitit")
         job = executor.submit(pow, 2, 5)
+        cluster.wait_for_jobs([job], timeout_s=120)  # job.result() alone has no time limit
+        assert job.result() == 32
 
 Everything (config, munge key, state, logs, MariaDB data) lives below one fresh folder;
 every daemon is our child, ended by pid on exit, and every wait is bounded.
@@ -23,7 +25,7 @@ import tempfile
 import time
 from pathlib import Path
 from types import TracebackType
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from .config import (
     ClusterLayout,
@@ -31,12 +33,13 @@ from .config import (
     slurm_conf_text,
     slurmdbd_conf_text,
 )
-from .install import SlurmInstallError, available, install, missing_packages, program
+from .packages import SlurmInstallError, available, install, missing_packages, program
 from .procs import (
     MARKER_ENV,
     carries_marker,
     end_child,
     end_pid,
+    end_pids,
     marked_pids,
     pid_alive,
     port_free,
@@ -47,6 +50,9 @@ from .procs import (
     unused_port,
     wait_until,
 )
+
+if TYPE_CHECKING:
+    import submitit
 
 __all__ = [
     "LocalSlurm",
@@ -59,9 +65,10 @@ __all__ = [
 
 DEFAULT_BASE_DIR = Path(tempfile.gettempdir()) / "seedsweep-slurm"
 _OWNER_FILE = "owner.pid"
+_ACTIVE_ROOTS: set[Path] = set()  # clusters running in this process: never reaped
 
 
-def reap_stale_runs(base_dir: Path, stop_timeout_s: float = 10.0) -> list[Path]:
+def reap_stale_runs(base_dir: Path, stop_timeout_s: float = 3.0) -> list[Path]:
     """End the processes of clusters whose owning Python process has died; drop their files.
 
     Only processes carrying that run's marker are ended, one by one by pid.
@@ -71,17 +78,22 @@ def reap_stale_runs(base_dir: Path, stop_timeout_s: float = 10.0) -> list[Path]:
         return reaped
     for run_dir in sorted(base_dir.glob("run-*")):
         owner = read_pid_file(run_dir / _OWNER_FILE)
+        if run_dir in _ACTIVE_ROOTS:
+            continue
         if owner is not None and owner != os.getpid() and pid_alive(owner):
             continue
-        for pid in marked_pids(run_dir):
-            end_pid(pid, stop_timeout_s)
+        end_pids(marked_pids(run_dir), stop_timeout_s)
         shutil.rmtree(run_dir, ignore_errors=True)
         reaped.append(run_dir)
     return reaped
 
 
 class LocalSlurm:
-    """Context manager: install (if needed), start, hand out executors, stop everything."""
+    """Context manager: install (if needed), start, hand out executors, stop everything.
+
+    Start it from the thread that lives as long as the cluster: the daemons get SIGTERM
+    when the starting thread ends (so a killed test run leaves no daemons behind).
+    """
 
     def __init__(
         self,
@@ -129,9 +141,7 @@ class LocalSlurm:
     def env(self) -> dict[str, str]:
         """Environment for clients (sbatch, sacct, submitit, a hydra app) of this cluster."""
         layout = self._require_layout()
-        return dict(
-            os.environ, SLURM_CONF=str(layout.slurm_conf), **{MARKER_ENV: str(layout.root)}
-        )
+        return dict(os.environ, SLURM_CONF=str(layout.slurm_conf), **{MARKER_ENV: str(layout.root)})
 
     def submitit_params(self) -> dict[str, Any]:
         """AutoExecutor parameters that fit the node (sbatch rejects memory above RealMemory)."""
@@ -142,7 +152,7 @@ class LocalSlurm:
             "mem_gb": self.job_mem_mb / 1024,
         }
 
-    def executor(self, folder: Path | str, **params: Any) -> Any:
+    def executor(self, folder: Path | str, **params: Any) -> submitit.AutoExecutor:
         """A submitit AutoExecutor for this cluster; use a fresh ``folder`` per test.
 
         (Job ids restart at 1 with every new cluster, so a reused folder can hold a stale
@@ -155,17 +165,23 @@ class LocalSlurm:
         executor.update_parameters(**{**self.submitit_params(), **params})
         return executor
 
-    def hydra_launcher_overrides(self) -> list[str]:
-        """Command-line overrides selecting hydra's submitit_slurm launcher for this node.
+    def hydra_launcher_params(self) -> dict[str, Any]:
+        """``hydra.launcher`` values (submitit_slurm) that fit this node.
 
         hydra's ``mem_gb`` is an int, so memory is given per CPU instead.
         """
-        return [
-            "hydra/launcher=submitit_slurm",
-            f"hydra.launcher.partition={self.partition}",
-            "hydra.launcher.cpus_per_task=1",
-            f"hydra.launcher.mem_per_cpu={self.job_mem_mb}M",
-            "hydra.launcher.timeout_min=5",
+        return {
+            "partition": self.partition,
+            "cpus_per_task": 1,
+            "mem_per_cpu": f"{self.job_mem_mb}M",
+            "timeout_min": 5,
+        }
+
+    def hydra_launcher_overrides(self) -> list[str]:
+        """Command-line overrides selecting hydra's submitit_slurm launcher for this node."""
+        params = self.hydra_launcher_params()
+        return ["hydra/launcher=submitit_slurm"] + [
+            f"hydra.launcher.{key}={value}" for key, value in params.items()
         ]
 
     def queue(self) -> list[str]:
@@ -175,9 +191,38 @@ class LocalSlurm:
 
     def job_states(self) -> dict[str, str]:
         """Job id -> state from accounting (sacct), e.g. {"1_0": "COMPLETED"}."""
-        result = run(["sacct", "-n", "-X", "-P", "-o", "JobID,State"], self.env(), 15.0)
+        result = run(
+            ["sacct", "-n", "-X", "-P", "-S", "now-7days", "-o", "JobID,State"], self.env(), 15.0
+        )
         pairs = (line.split("|", 1) for line in result.stdout.splitlines() if "|" in line)
         return {job_id: state for job_id, state in pairs}
+
+    def wait_for_jobs(self, jobs: list[Any], timeout_s: float, poll_s: float = 0.5) -> float:
+        """Wait until every submitit job is done; return seconds waited.
+
+        Why: ``job.result()`` has no time limit and waits forever for a job that died without
+        a result when accounting is off. Past ``timeout_s`` the jobs are cancelled and a
+        TimeoutError names their states and the end of their stderr logs.
+        """
+        start = time.monotonic()
+        last_forced = start
+        while True:
+            now = time.monotonic()
+            force = now - last_forced > 2.0  # ask sacct now and then, not on every poll
+            if force:
+                last_forced = now
+            if all(job.done(force_check=force) for job in jobs):
+                return time.monotonic() - start
+            if now - start > timeout_s:
+                break
+            time.sleep(poll_s)
+        details = [f"squeue: {self.queue()}"]
+        if self.accounting:
+            details.append(f"sacct: {self.job_states()}")
+        for job in jobs:
+            details.append(f"--- {job.job_id} stderr:\n{tail(Path(job.paths.stderr), 10)}")
+        run(["scancel", *[str(job.job_id) for job in jobs]], self.env(), 15.0, check=False)
+        raise TimeoutError(f"jobs not done within {timeout_s:.0f} s\n" + "\n".join(details))
 
     # ----- context manager ----------------------------------------------------------------
 
@@ -206,8 +251,15 @@ class LocalSlurm:
         if missing:
             raise SlurmInstallError(f"Slurm packages not installed: {' '.join(missing)}")
         reap_stale_runs(self.base_dir)
-        self._wait_ports_free(timeout_s=10.0)
+        try:
+            self._wait_ports_free(timeout_s=10.0)
+        except TimeoutError as err:
+            raise RuntimeError(
+                f"{err}: another Slurm (or other program) holds it; stop that one or pass "
+                "other ctld_port/slurmd_port/dbd_port to LocalSlurm"
+            ) from err
         self.layout = self._make_layout()
+        _ACTIVE_ROOTS.add(self.layout.root)
         self._set_client_env()
         started = time.monotonic()
         try:
@@ -230,8 +282,8 @@ class LocalSlurm:
         began = time.monotonic()
         problems: list[str] = []
         layout = self.layout
-        if layout is None:
-            return problems
+        if layout is None or layout.root not in _ACTIVE_ROOTS:
+            return problems  # never started, or stopped already
         if "slurmctld" in self._children and self._children["slurmctld"].poll() is None:
             problems += self._cancel_all_jobs()
         for name in reversed(list(self._children)):
@@ -242,8 +294,7 @@ class LocalSlurm:
             if pid is not None and carries_marker(pid, layout.root):
                 end_pid(pid, self.stop_timeout_s)
         self.leftovers = marked_pids(layout.root)
-        for pid in self.leftovers:
-            end_pid(pid, self.stop_timeout_s)
+        end_pids(self.leftovers, self.stop_timeout_s)
         still_alive = [pid for pid in self.leftovers if pid_alive(pid)]
         if still_alive:
             problems.append(f"processes still alive after SIGKILL: {still_alive}")
@@ -252,6 +303,7 @@ class LocalSlurm:
         except TimeoutError as err:
             problems.append(str(err))
         self._restore_client_env()
+        _ACTIVE_ROOTS.discard(layout.root)
         keep = self.keep_files if remove_files is None else not remove_files
         if not keep:
             shutil.rmtree(layout.root, ignore_errors=True)
@@ -283,8 +335,14 @@ class LocalSlurm:
 
     def _write_files(self) -> None:
         layout = self._require_layout()
-        for folder in (layout.etc, layout.log_dir, layout.run_dir, layout.state_dir,
-                       layout.spool_dir, layout.munge_dir):
+        for folder in (
+            layout.etc,
+            layout.log_dir,
+            layout.run_dir,
+            layout.state_dir,
+            layout.spool_dir,
+            layout.munge_dir,
+        ):
             folder.mkdir(mode=0o755, exist_ok=True)
             folder.chmod(0o755)
         layout.munge_key.write_bytes(secrets.token_bytes(1024))
@@ -317,17 +375,25 @@ class LocalSlurm:
 
         return check
 
-    def _timed_wait(self, name: str, condition: Any, what: str) -> None:
-        waited = wait_until(condition, self.start_timeout_s, what, self._exited(name))
-        self.timings[f"{name}_ready_s"] = waited
+    def _timed_wait(self, name: str, condition: Any, what: str, key: str = "") -> None:
+        """Wait for ``condition`` while daemon ``name`` runs; record the wait as ``key``."""
+        try:
+            waited = wait_until(condition, self.start_timeout_s, what, self._exited(name))
+        except TimeoutError as err:
+            log_path = self._require_layout().log_file(name)
+            raise TimeoutError(f"{err}\n--- {log_path}\n{tail(log_path)}") from err
+        self.timings[key or f"{name}_ready_s"] = waited
 
     def _start_munged(self) -> None:
         layout = self._require_layout()
         self._start(
             "munged",
             [
-                program("munged") or "munged", "--foreground", "--force",
-                f"--socket={layout.munge_socket}", f"--key-file={layout.munge_key}",
+                program("munged") or "munged",
+                "--foreground",
+                "--force",
+                f"--socket={layout.munge_socket}",
+                f"--key-file={layout.munge_key}",
                 f"--pid-file={layout.pid_file('munged')}",
                 f"--log-file={layout.log_file('munged')}",
                 f"--seed-file={layout.run_dir / 'munged.seed'}",
@@ -341,8 +407,11 @@ class LocalSlurm:
         began = time.monotonic()
         run(
             [
-                program("mariadb-install-db") or "mariadb-install-db", "--no-defaults",
-                f"--datadir={layout.mysql_dir}", "--user=root", "--skip-test-db",
+                program("mariadb-install-db") or "mariadb-install-db",
+                "--no-defaults",
+                f"--datadir={layout.mysql_dir}",
+                "--user=root",
+                "--skip-test-db",
                 "--auth-root-authentication-method=socket",
             ],
             self.env(),
@@ -352,16 +421,26 @@ class LocalSlurm:
         self._start(
             "mariadbd",
             [
-                program("mariadbd") or "mariadbd", "--no-defaults",
-                f"--datadir={layout.mysql_dir}", f"--socket={layout.mysql_socket}",
-                f"--port={layout.mysql_port}", "--bind-address=127.0.0.1", "--user=root",
+                program("mariadbd") or "mariadbd",
+                "--no-defaults",
+                f"--datadir={layout.mysql_dir}",
+                f"--socket={layout.mysql_socket}",
+                f"--port={layout.mysql_port}",
+                "--bind-address=127.0.0.1",
+                "--user=root",
                 f"--pid-file={layout.pid_file('mariadbd')}",
                 f"--log-error={layout.log_file('mariadbd')}",
-                "--innodb-buffer-pool-size=64M", "--skip-log-bin",
+                "--innodb-buffer-pool-size=64M",
+                "--skip-log-bin",
             ],
         )
-        client = [program("mariadb") or "mariadb", "--no-defaults",
-                  f"--socket={layout.mysql_socket}", "-u", "root"]
+        client = [
+            program("mariadb") or "mariadb",
+            "--no-defaults",
+            f"--socket={layout.mysql_socket}",
+            "-u",
+            "root",
+        ]
 
         def answers() -> bool:
             return run([*client, "-e", "SELECT 1"], self.env(), 10.0, check=False).returncode == 0
@@ -391,13 +470,23 @@ class LocalSlurm:
         layout = self._require_layout()
         self._start(
             "slurmd",
-            [program("slurmd") or "slurmd", "-D", "-N", layout.node_name,
-             "-f", str(layout.slurm_conf)],
+            [
+                program("slurmd") or "slurmd",
+                "-D",
+                "-N",
+                layout.node_name,
+                "-f",
+                str(layout.slurm_conf),
+            ],
         )
 
         def idle() -> bool:
-            result = run(["sinfo", "-h", "-N", "-n", layout.node_name, "-o", "%T"],
-                         self.env(), 10.0, check=False)
+            result = run(
+                ["sinfo", "-h", "-N", "-n", layout.node_name, "-o", "%T"],
+                self.env(),
+                10.0,
+                check=False,
+            )
             return result.stdout.strip() == "idle"
 
         self._timed_wait("slurmd", idle, f"sinfo showing {layout.node_name} idle")
@@ -406,11 +495,17 @@ class LocalSlurm:
         """Wait until sacct can reach slurmdbd and the cluster is registered there."""
 
         def registered() -> bool:
-            result = run(["sacctmgr", "-n", "-P", "list", "cluster", "format=Cluster"],
-                         self.env(), 10.0, check=False)
+            result = run(
+                ["sacctmgr", "-n", "-P", "list", "cluster", "format=Cluster"],
+                self.env(),
+                10.0,
+                check=False,
+            )
             return "seedsweep" in result.stdout.split()
 
-        self._timed_wait("slurmdbd", registered, "cluster registered in slurmdbd")
+        self._timed_wait(
+            "slurmdbd", registered, "cluster registered in slurmdbd", "accounting_ready_s"
+        )
 
     # ----- stop steps -------------------------------------------------------------------
 
@@ -419,8 +514,9 @@ class LocalSlurm:
             ids = self.queue()
             if ids:
                 run(["scancel", *ids], self.env(), 15.0, check=False)
-                wait_until(lambda: not self.queue(), self.stop_timeout_s, "jobs cancelled",
-                           poll_s=0.2)
+                wait_until(
+                    lambda: not self.queue(), self.stop_timeout_s, "jobs cancelled", poll_s=0.2
+                )
         except (RuntimeError, TimeoutError, subprocess.TimeoutExpired) as err:
             return [f"cancelling jobs: {err}"]
         return []
@@ -430,8 +526,12 @@ class LocalSlurm:
         if with_mysql and self.layout is not None and self.layout.mysql_port:
             ports["mariadbd"] = self.layout.mysql_port
         for name, port in ports.items():
-            wait_until(lambda port=port: port_free(port), timeout_s,
-                       f"port {port} ({name}) free", poll_s=0.1)
+            wait_until(
+                lambda port=port: port_free(port),
+                timeout_s,
+                f"port {port} ({name}) free",
+                poll_s=0.1,
+            )
 
     # ----- environment ------------------------------------------------------------------
 

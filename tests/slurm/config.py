@@ -99,7 +99,7 @@ def slurm_conf_text(layout: ClusterLayout, accounting: bool) -> str:
         "CredType=cred/munge",
         f"AuthInfo=socket={layout.munge_socket}",
         f"StateSaveLocation={layout.state_dir}",
-        f"SlurmdSpoolDir={layout.spool_dir}/%n",
+        f"SlurmdSpoolDir={layout.spool_dir}",
         f"SlurmctldPidFile={layout.pid_file('slurmctld')}",
         f"SlurmdPidFile={layout.pid_file('slurmd')}",
         f"SlurmctldLogFile={layout.log_file('slurmctld')}",

@@ -73,26 +73,32 @@ def carries_marker(pid: int, root: Path) -> bool:
 def marked_pids(root: Path) -> list[int]:
     """All live processes that belong to the cluster rooted at ``root``."""
     own = os.getpid()
-    pids = []
-    for entry in Path("/proc").iterdir():
-        if entry.name.isdigit() and int(entry.name) != own and carries_marker(int(entry.name), root):
-            if pid_alive(int(entry.name)):
-                pids.append(int(entry.name))
-    return sorted(pids)
+    candidates = (int(entry.name) for entry in Path("/proc").iterdir() if entry.name.isdigit())
+    return sorted(
+        pid for pid in candidates if pid != own and carries_marker(pid, root) and pid_alive(pid)
+    )
+
+
+def end_pids(pids: Sequence[int], timeout_s: float) -> None:
+    """SIGTERM all ``pids`` at once, wait up to ``timeout_s``, then SIGKILL what is left."""
+    for sig, wait_s in ((signal.SIGTERM, timeout_s), (signal.SIGKILL, 5.0)):
+        alive = [pid for pid in pids if pid_alive(pid)]
+        for pid in alive:
+            try:
+                os.kill(pid, sig)
+            except ProcessLookupError:
+                pass
+        deadline = time.monotonic() + wait_s
+        while alive and time.monotonic() < deadline:
+            time.sleep(0.05)
+            alive = [pid for pid in alive if pid_alive(pid)]
+        if not alive:
+            return
 
 
 def end_pid(pid: int, timeout_s: float) -> None:
-    """SIGTERM ``pid``, wait up to ``timeout_s``, then SIGKILL and wait a little more."""
-    for sig, wait_s in ((signal.SIGTERM, timeout_s), (signal.SIGKILL, 5.0)):
-        try:
-            os.kill(pid, sig)
-        except ProcessLookupError:
-            return
-        deadline = time.monotonic() + wait_s
-        while time.monotonic() < deadline:
-            if not pid_alive(pid):
-                return
-            time.sleep(0.05)
+    """End one process by pid: SIGTERM, then SIGKILL after ``timeout_s``."""
+    end_pids([pid], timeout_s)
 
 
 def end_child(proc: subprocess.Popen[bytes], timeout_s: float) -> None:

@@ -65,7 +65,11 @@ def _apt(args: list[str], timeout_s: float) -> None:
     argv = ["apt-get", "-q", "-o", "DPkg::Lock::Timeout=120", *args]
     try:
         result = subprocess.run(
-            argv, env=env, capture_output=True, text=True, timeout=timeout_s,
+            argv,
+            env=env,
+            capture_output=True,
+            text=True,
+            timeout=timeout_s,
             stdin=subprocess.DEVNULL,
         )
     except subprocess.TimeoutExpired as err:
@@ -90,7 +94,7 @@ def install(accounting: bool = True, timeout_s: float = 900.0) -> list[str]:
         raise SlurmInstallError(reason)
     added_policy = not _POLICY_RC.exists()
     if added_policy:
-        _POLICY_RC.write_text("#!/bin/sh\n# temporary, from tests/slurm/install.py\nexit 101\n")
+        _POLICY_RC.write_text("#!/bin/sh\n# temporary, from tests/slurm/packages.py\nexit 101\n")
         _POLICY_RC.chmod(0o755)
     try:
         if not _apt_updated:

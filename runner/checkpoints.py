@@ -1,0 +1,86 @@
+"""Training checkpoints: full state, written atomically, verified before use.
+
+Each checkpoint is a torch file plus a ``.sha256`` beside it, both written atomically
+(the digest last). A checkpoint whose digest is missing or wrong, or that fails to load,
+is reported and skipped: the run falls back to the previous one, or starts afresh.
+The newest :data:`KEEP` checkpoints are kept.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import random
+import sys
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import torch
+
+from runner.records import atomic_write_bytes, atomic_write_text
+
+FOLDER = "checkpoints"
+KEEP = 2
+
+
+def global_rng_state() -> dict[str, Any]:
+    kind, keys, pos, has_gauss, cached = np.random.get_state()
+    return {
+        "python": random.getstate(),
+        "numpy": {"kind": kind, "keys": torch.from_numpy(keys.astype(np.int64)), "pos": int(pos),
+                  "has_gauss": int(has_gauss), "cached": float(cached)},
+        "torch": torch.get_rng_state(),
+    }
+
+
+def load_global_rng_state(state: dict[str, Any]) -> None:
+    py = state["python"]
+    random.setstate((py[0], tuple(py[1]), py[2]))
+    n = state["numpy"]
+    np.random.set_state((n["kind"], n["keys"].numpy().astype(np.uint32), n["pos"], n["has_gauss"],
+                         n["cached"]))
+    torch.set_rng_state(state["torch"])
+
+
+def to_bytes(state: dict[str, Any]) -> bytes:
+    buf = io.BytesIO()
+    torch.save(state, buf)
+    return buf.getvalue()
+
+
+def save(run_dir: Path, state: dict[str, Any], env_steps: int) -> Path:
+    """Write checkpoint ``ckpt-<env_steps>.pt`` and its digest; prune old ones."""
+    folder = run_dir / FOLDER
+    folder.mkdir(parents=True, exist_ok=True)
+    data = to_bytes(state)
+    path = folder / f"ckpt-{env_steps:012d}.pt"
+    atomic_write_bytes(path, data)
+    atomic_write_text(path.with_suffix(".sha256"), hashlib.sha256(data).hexdigest() + "\n")
+    for old in sorted(folder.glob("ckpt-*.pt"))[:-KEEP]:
+        old.with_suffix(".sha256").unlink(missing_ok=True)
+        old.unlink(missing_ok=True)
+    return path
+
+
+def load_latest(run_dir: Path, log=None) -> tuple[dict[str, Any], Path] | None:
+    """The newest checkpoint that verifies and loads, or None. Bad ones are reported."""
+    log = log or (lambda msg: print(msg, file=sys.stderr))
+    for path in sorted((run_dir / FOLDER).glob("ckpt-*.pt"), reverse=True):
+        digest_file = path.with_suffix(".sha256")
+        try:
+            data = path.read_bytes()
+            expected = digest_file.read_text().strip() if digest_file.exists() else None
+            if expected != hashlib.sha256(data).hexdigest():
+                raise ValueError("digest missing or does not match (truncated or corrupt)")
+            state = torch.load(io.BytesIO(data), weights_only=True)
+            return state, path
+        except Exception as err:  # any failure to read means: do not continue from it
+            log(f"seedsweep: warning: checkpoint {path.name} unusable ({err}); trying an older one")
+    return None
+
+
+def clear(run_dir: Path) -> None:
+    folder = run_dir / FOLDER
+    for p in folder.glob("ckpt-*"):
+        p.unlink(missing_ok=True)

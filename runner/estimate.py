@@ -1,0 +1,91 @@
+"""Wall-time estimate of a sweep before it starts.
+
+Cost per env step of each agent × env comes from earlier complete runs on this machine
+(a small cache under ``$SEEDSWEEP_CACHE`` or ``~/.cache/seedsweep``), or else from a short
+calibration run of that pair (a couple of thousand steps, timed over its second half so
+that learning-start warm-ups count as little as possible).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import socket
+import tempfile
+import time
+from pathlib import Path
+
+from runner.progress import _fmt_eta
+from runner.records import atomic_write_json
+
+CALIBRATION_STEPS = 2000
+
+
+def cache_file() -> Path:
+    root = Path(os.environ.get("SEEDSWEEP_CACHE", Path.home() / ".cache" / "seedsweep"))
+    return root / "step_costs.json"
+
+
+def _key(p) -> str:
+    return f"{socket.gethostname()}|{p.config['agent']['name']}|{p.env.id}"
+
+
+def load_costs() -> dict[str, float]:
+    try:
+        return json.loads(cache_file().read_text())
+    except (OSError, ValueError):
+        return {}
+
+
+def remember(p, seconds_per_step: float) -> None:
+    """Record the measured cost of one complete run (a running mean per pair)."""
+    costs = load_costs()
+    key = _key(p)
+    old = costs.get(key)
+    costs[key] = seconds_per_step if old is None else 0.5 * (old + seconds_per_step)
+    try:
+        atomic_write_json(cache_file(), costs)
+    except OSError:
+        pass  # an estimate cache is a convenience, never a reason to fail a run
+
+
+def calibrate(p) -> float:
+    """Seconds per env step of one agent × env pair, from a short throwaway run."""
+    import copy
+
+    from runner.run import execute, prepare
+
+    cfg = copy.deepcopy(p.config)
+    steps = min(int(cfg["steps"]), CALIBRATION_STEPS)
+    with tempfile.TemporaryDirectory() as tmp:
+        cfg.update(steps=steps, results_dir=tmp, sweep="calibration")
+        cfg["eval"] = dict(cfg["eval"], every=steps, episodes=1)
+        cfg["checkpoint"] = {"every": 0}
+        t0 = time.perf_counter()
+        doc = execute(prepare(cfg), progress="quiet")
+        elapsed = doc.get("loop_s") or (time.perf_counter() - t0)
+    return float(elapsed) / steps
+
+
+def estimate_wall_time(to_run, workers: int) -> str:
+    """One line: the sweep's size and its estimated wall time, with where that came from."""
+    costs = load_costs()
+    per_pair: dict[str, float] = {}
+    sources = {"earlier runs": 0, "calibration": 0}
+    for p in to_run:
+        key = _key(p)
+        if key in per_pair:
+            continue
+        if key in costs:
+            per_pair[key] = costs[key]
+            sources["earlier runs"] += 1
+        else:
+            per_pair[key] = calibrate(p)
+            sources["calibration"] += 1
+    work = sorted((per_pair[_key(p)] * int(p.config["steps"]) for p in to_run), reverse=True)
+    lanes = [0.0] * max(1, workers)
+    for w in work:  # longest first onto the least loaded worker
+        lanes[lanes.index(min(lanes))] += w
+    where = ", ".join(f"{n} pair(s) from {s}" for s, n in sources.items() if n)
+    return (f"seedsweep: {len(to_run)} runs on {workers} worker(s): estimated wall time "
+            f"{_fmt_eta(max(lanes))} ({where})")

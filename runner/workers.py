@@ -1,0 +1,168 @@
+"""Local parallel execution: one process per run, at most ``workers`` at a time.
+
+A process per run isolates failures: an exception is recorded by the run itself, and a
+process that dies (a crash, the OOM killer, SIGKILL) is seen by the parent, which marks
+that run failed and goes on with the others.
+"""
+
+from __future__ import annotations
+
+import multiprocessing as mp
+import os
+import queue as queue_mod
+import signal
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from runner.run import PreparedRun, read_run_json
+from runner.sweep_progress import SweepProgress
+
+EXIT_BUSY = 3
+
+
+@dataclass
+class Outcome:
+    complete: int = 0
+    failed: list[tuple[str, str]] = field(default_factory=list)
+    busy: list[str] = field(default_factory=list)
+
+
+def default_workers() -> int:
+    """Physical cores (hyper-threads share a core's arithmetic units)."""
+    cores = set()
+    try:
+        physical = core = None
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("physical id"):
+                physical = line.split(":")[1].strip()
+            elif line.startswith("core id"):
+                core = line.split(":")[1].strip()
+                cores.add((physical, core))
+    except OSError:
+        pass
+    n = len(cores) or os.cpu_count() or 1
+    try:
+        n = min(n, len(os.sched_getaffinity(0)))
+    except AttributeError:
+        pass
+    return max(1, n)
+
+
+def run_job(config: dict[str, Any], retry_failed: bool = False, progress: Any = "lines") -> dict:
+    """Run one resolved config to completion in this process (local worker or cluster job).
+
+    Skip, resume and locking are the same wherever it runs. Returns the final run.json, or
+    ``{"status": "busy"}`` if another process holds the run's lock.
+    """
+    from runner.run import RunBusy, execute, prepare
+
+    prepared = prepare(config)
+    try:
+        return execute(prepared, progress=progress, retry_failed=retry_failed)
+    except RunBusy:
+        return {"run_id": prepared.run_id, "status": "busy"}
+
+
+def _worker(config: dict[str, Any], retry_failed: bool, messages) -> None:
+    import sys
+
+    from runner.progress import QueueProgress
+
+    try:
+        doc = run_job(config, retry_failed, progress=QueueProgress(messages))
+    except BaseException:  # the run recorded why in its run.json and error.log
+        sys.exit(1)
+    sys.exit(EXIT_BUSY if doc.get("status") == "busy" else 0)
+
+
+def run_local(planned: list[PreparedRun], workers: int, opts) -> Outcome:
+    """Run ``planned`` in up to ``workers`` processes; the order is kept."""
+    ctx = mp.get_context("spawn")
+    messages = ctx.Queue()
+    pending = list(planned)
+    running: dict[str, tuple[Any, PreparedRun]] = {}
+    outcome = Outcome()
+    display = SweepProgress(planned, workers, mode=opts.progress)
+    try:
+        while pending or running:
+            while pending and len(running) < workers:
+                p = pending.pop(0)
+                proc = ctx.Process(target=_worker, args=(p.config, opts.retry_failed, messages),
+                                   name=p.run_id, daemon=False)
+                proc.start()
+                running[p.run_id] = (proc, p)
+                display.started(p.run_id)
+            _drain(messages, display, timeout=0.25)
+            for run_id, (proc, p) in list(running.items()):
+                if proc.is_alive():
+                    continue
+                proc.join()
+                del running[run_id]
+                _settle(proc.exitcode, p, outcome, display)
+            display.refresh()
+        _drain(messages, display, timeout=0.0)
+    except KeyboardInterrupt:
+        for proc, _ in running.values():
+            if proc.is_alive():
+                os.kill(proc.pid, signal.SIGINT)
+        for proc, _ in running.values():
+            proc.join(timeout=30)
+        raise
+    finally:
+        display.close()
+    return outcome
+
+
+def _drain(messages, display: SweepProgress, timeout: float) -> None:
+    deadline = time.monotonic() + timeout
+    while True:
+        try:
+            msg = messages.get(timeout=max(0.0, deadline - time.monotonic()))
+        except queue_mod.Empty:
+            return
+        display.message(msg)
+        timeout = 0.0
+        deadline = time.monotonic()
+
+
+def _settle(exitcode: int | None, p: PreparedRun, outcome: Outcome, display: SweepProgress) -> None:
+    """Read what the finished process left on disk; a dead worker's run is marked failed."""
+    doc = read_run_json(p.run_dir) or {}
+    status = doc.get("status")
+    if exitcode == EXIT_BUSY:
+        outcome.busy.append(p.run_id)
+        display.finished(p.run_id, "busy")
+        return
+    if status == "complete" and exitcode == 0:
+        outcome.complete += 1
+        display.finished(p.run_id, "complete")
+        return
+    if status == "running" or not doc:
+        reason = _death_reason(exitcode)
+        mark_failed(p, reason)
+    else:
+        reason = doc.get("error") or f"exit code {exitcode}"
+    outcome.failed.append((p.run_id, reason))
+    display.finished(p.run_id, "failed", reason)
+
+
+def _death_reason(exitcode: int | None) -> str:
+    if exitcode is not None and exitcode < 0:
+        try:
+            name = signal.Signals(-exitcode).name
+        except ValueError:
+            name = str(-exitcode)
+        return f"worker process died ({name})"
+    return f"worker process exited with code {exitcode} without recording a result"
+
+
+def mark_failed(p: PreparedRun, reason: str) -> None:
+    """Record the failure of a run whose own process could not (it died)."""
+    from runner import records
+
+    doc = read_run_json(p.run_dir) or {"run_id": p.run_id}
+    doc.update(status="failed", error=reason, finished=records.now_iso())
+    records.atomic_write_json(p.run_dir / "run.json", doc)
+    records.atomic_write_text(p.run_dir / "error.log", reason + "\n")
