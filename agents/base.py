@@ -67,7 +67,8 @@ class Step:
 
     ``next_obs`` is the true successor observation: where an episode ended this step it is
     the final observation of that episode (not the reset observation), so an agent can
-    bootstrap from it on truncation. ``reset_obs`` is what the agent acts on next.
+    bootstrap from it on truncation. The arrays belong to the runner: read them, copy what
+    you keep, never write into them (some are shared and read-only).
     """
 
     obs: np.ndarray  # (num_envs, *obs_shape)

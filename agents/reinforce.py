@@ -41,6 +41,13 @@ VALUE_OUT_GAIN = 1.0
 class Reinforce(Agent):
     action_spaces = (spaces.Discrete, spaces.Box)
 
+    @classmethod
+    def supports(cls, action_space: spaces.Space) -> bool:
+        """Discrete, or a 1-D Box (one Gaussian dimension per action component)."""
+        if isinstance(action_space, spaces.Box):
+            return len(action_space.shape) == 1
+        return isinstance(action_space, spaces.Discrete)
+
     @dataclass
     class Config:
         gamma: float = 0.99
@@ -125,6 +132,8 @@ class Reinforce(Agent):
     def episode_batch(self) -> dict[str, torch.Tensor]:
         """The finished episodes as flat tensors, with their (bootstrapped) returns."""
         eps = self._completed
+        if not eps:
+            raise ValueError("no finished episode to build a batch from yet")
         bootstrap = np.zeros(len(eps))
         cut = [i for i, e in enumerate(eps) if e["truncated"]]
         if cut:

@@ -26,6 +26,13 @@ from envs.normalize import ObsNormalizer
 
 RewardTransform = tuple[str, dict[str, Any]]
 
+# Read-only one-env flag arrays and "no episode ended", shared by every step of the lean
+# one-env path instead of allocating new ones each step.
+_FLAGS = {False: np.zeros(1, dtype=bool), True: np.ones(1, dtype=bool)}
+for _a in _FLAGS.values():
+    _a.flags.writeable = False
+_NONE: tuple = ()
+
 
 class TrainEnvs:
     """``num_envs`` training envs behind one batched ``reset``/``step``."""
@@ -91,11 +98,11 @@ class TrainEnvs:
             self._lengths[0] += 1
             next_obs = np.asarray(obs)[None]
             rewards = np.array([reward], dtype=np.float64)
-            terminated = np.array([term])
-            truncated = np.array([trunc])
-            finished = []
+            terminated = _FLAGS[bool(term)]
+            truncated = _FLAGS[bool(trunc)]
+            finished = _NONE
             if term or trunc:
-                finished.append((float(self._returns[0]), int(self._lengths[0])))
+                finished = [(float(self._returns[0]), int(self._lengths[0]))]
                 self._returns[0] = 0.0
                 self._lengths[0] = 0
                 if self.track_resets:

@@ -18,6 +18,9 @@ COMMANDS = {
     "configs": ("runner.cli", "configs_main", "list the agent and env configs"),
     "status": ("runner.status", "status_main", "what a sweep folder holds: done, running, ..."),
     "report": ("runner.report", "report_main", "aggregate a sweep folder into a report"),
+    "compare": ("runner.compare", "compare_main", "is a candidate agent better than baselines?"),
+    "plan-seeds": ("runner.compare", "plan_seeds_main", "how many seeds a comparison needs"),
+    "check-agent": ("runner.check_agent", "check_agent_main", "check an agent against the contract"),
 }
 
 
@@ -63,6 +66,7 @@ def run_help() -> str:
 
     agents = ", ".join(group_options("agent"))
     envs = ", ".join(group_options("env"))
+    suites = ", ".join(group_options("suite"))
     wrappers = "\n".join(f"    {n:<15}{w.doc}" for n, w in WRAPPERS.items())
     return f"""usage: seedsweep run [-m] [workers=N] [options] [key=value ...]
 
@@ -72,6 +76,7 @@ seed=0,1,2 agent=dqn,random). Overrides use hydra's grammar.
 config groups:
   agent=   {agents}
   env=     {envs}
+  suite=   {suites}  (a set of envs with budgets; needs -m)
 
 top-level keys (defaults in configs/config.yaml):
   seed              run seed (int); every other seed is derived from it and recorded
@@ -209,11 +214,11 @@ def configs_main(argv: Sequence[str]) -> int:
     from runner.config import config_dir, group_options
 
     root = config_dir()
-    for group in ("agent", "env"):
-        print(f"{group}:")
+    for group in ("agent", "env", "suite", "sweep"):
+        print(f"{group}:" if group != "sweep" else "sweep files (--sweep-file):")
         for name in group_options(group):
             doc = yaml.safe_load((root / group / f"{name}.yaml").read_text()) or {}
-            detail = doc.get("id") or doc.get("entry") or ""
+            detail = doc.get("id") or doc.get("entry") or doc.get("description") or ""
             print(f"  {name:<24}{detail}")
     return 0
 

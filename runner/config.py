@@ -24,7 +24,7 @@ GROUPS = ("agent", "env")
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_][A-Za-z0-9_.-]*$")
 
 
-HYDRA_GROUPS = ("agent", "env", "suite")  # config folders that are hydra groups
+HYDRA_GROUPS = ("agent", "env")  # config folders that are hydra groups
 
 
 def config_dir() -> Path:
@@ -94,6 +94,52 @@ def expand(overrides: Sequence[str], multirun: bool) -> list[list[str]]:
         else:
             axes[key] = [f"{key}={o.get_value_element_as_str()}"]
     return [list(combo) for combo in itertools.product(*axes.values())]
+
+
+SUITE_KEYS = {"name", "description", "envs", "steps", "eval"}
+
+
+def apply_suite(overrides: Sequence[str], extra_dirs: Sequence[Path] = ()) -> list[list[str]]:
+    """Replace ``suite=NAME`` by the suite's envs, budgets and evaluation settings.
+
+    Returns override groups (one per distinct budget); keys the user gives explicitly
+    (``steps=``, ``eval.every=``, ``eval.episodes=``, ``sweep=``) win over the suite's.
+    """
+    import yaml
+
+    suites = [o for o in overrides if o.split("=", 1)[0] == "suite"]
+    if not suites:
+        return [list(overrides)]
+    if len(suites) > 1 or "," in suites[0]:
+        raise ConfigError("suite", "give one suite per sweep")
+    name = suites[0].split("=", 1)[1]
+    allowed = group_options("suite", extra_dirs)
+    if name not in allowed:
+        raise ConfigError("suite", f"unknown suite {name!r} (allowed: {', '.join(allowed)})")
+    path = next(p for p in [config_dir(), *map(Path, extra_dirs)]
+                if (p / "suite" / f"{name}.yaml").is_file()) / "suite" / f"{name}.yaml"
+    doc = yaml.safe_load(path.read_text()) or {}
+    unknown = sorted(set(doc) - SUITE_KEYS)
+    if unknown:
+        raise ConfigError(f"suite.{unknown[0]}", f"unknown key in {path} (allowed: "
+                          f"{', '.join(sorted(SUITE_KEYS))})")
+    rest = [o for o in overrides if o.split("=", 1)[0] != "suite"]
+    given = {o.split("=", 1)[0].lstrip("+") for o in rest}
+    if "env" in given:
+        raise ConfigError("env", f"suite={name} chooses the envs; drop env=")
+    common = [] if "sweep" in given else [f"sweep={name}"]
+    for key, value in (doc.get("eval") or {}).items():
+        if f"eval.{key}" not in given:
+            common.append(f"eval.{key}={value}")
+    envs = doc.get("envs") or []
+    steps = doc.get("steps")
+    if isinstance(steps, dict) and "steps" not in given:
+        missing = [e for e in envs if e not in steps]
+        if missing:
+            raise ConfigError("suite.steps", f"no budget for env {missing[0]!r} in {path}")
+        return [[f"env={e}", f"steps={steps[e]}", *common, *rest] for e in envs]
+    budget = [f"steps={steps}"] if steps is not None and "steps" not in given else []
+    return [[f"env={','.join(envs)}", *budget, *common, *rest]]
 
 
 def compose(overrides: Sequence[str], extra_dirs: Sequence[Path] = ()) -> dict[str, Any]:

@@ -39,9 +39,10 @@ class SweepOptions:
 def plan(overrides: Sequence[str], multirun: bool = False,
          extra_dirs: Sequence[Path] = ()) -> list[PreparedRun]:
     """Expand and check every run of a sweep; raises ConfigError before anything is written."""
+    from runner.config import apply_suite
     from runner.run import prepare
 
-    combos = expand(overrides, multirun)
+    combos = [c for group in apply_suite(overrides, extra_dirs) for c in expand(group, multirun)]
     if not combos:
         raise ConfigError("overrides", "the sweep is empty")
     planned = [prepare(compose(c, extra_dirs)) for c in combos]
