@@ -37,7 +37,8 @@ class UniformRandom(Agent):
             self._draw = lambda k: self.rng.uniform(low, high, size=(k, *space.shape)).astype(
                 space.dtype)
         elif isinstance(space, spaces.MultiDiscrete):
-            self._draw = lambda k: self.rng.integers(space.nvec, size=(k, *space.shape)) + space.start
+            self._draw = lambda k: (self.rng.integers(space.nvec, size=(k, *space.shape))
+                                    + space.start)
         else:
             self._draw = lambda k: self.rng.integers(2, size=(k, *space.shape)).astype(space.dtype)
 

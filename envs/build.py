@@ -50,7 +50,8 @@ def parse_env_config(cfg: dict[str, Any]) -> EnvSpec:
     """Check an env config and that its environment can be built; raises ConfigError."""
     unknown = sorted(set(cfg) - ENV_KEYS)
     if unknown:
-        raise ConfigError(f"env.{unknown[0]}", f"unknown key (allowed: {', '.join(sorted(ENV_KEYS))})")
+        allowed = ", ".join(sorted(ENV_KEYS))
+        raise ConfigError(f"env.{unknown[0]}", f"unknown key (allowed: {allowed})")
     env_id = cfg.get("id")
     if not isinstance(env_id, str) or not env_id:
         raise ConfigError("env.id", f"expected a gymnasium id or module:Class, got {env_id!r}")
@@ -109,7 +110,8 @@ def _resolve_id(env_id: str) -> str:
         if attr in gym.registry:  # gymnasium's "module:EnvId-v0" (the module registers it)
             return attr
         raise ConfigError(
-            "env.id", f"{attr!r} in {module_name!r} is neither a gymnasium.Env class nor a registered id"
+            "env.id",
+            f"{attr!r} in {module_name!r} is neither a gymnasium.Env class nor a registered id",
         )
     try:
         gym.spec(env_id)

@@ -80,7 +80,8 @@ def parse_wrappers(entries: list[Any]) -> list[tuple[str, dict[str, Any]]]:
     if entries is None:
         return []
     if not isinstance(entries, list):
-        raise ConfigError("env.wrappers", f"expected a list of {{name: ...}} entries, got {entries!r}")
+        raise ConfigError("env.wrappers",
+                          f"expected a list of {{name: ...}} entries, got {entries!r}")
     out = []
     for i, entry in enumerate(entries):
         where = f"env.wrappers[{i}]"

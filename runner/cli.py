@@ -20,7 +20,8 @@ COMMANDS = {
     "report": ("runner.report", "report_main", "aggregate a sweep folder into a report"),
     "compare": ("runner.compare", "compare_main", "is a candidate agent better than baselines?"),
     "plan-seeds": ("runner.compare", "plan_seeds_main", "how many seeds a comparison needs"),
-    "check-agent": ("runner.check_agent", "check_agent_main", "check an agent against the contract"),
+    "check-agent": ("runner.check_agent", "check_agent_main",
+                    "check an agent against the contract"),
 }
 
 
@@ -142,7 +143,8 @@ def run_main(argv: Sequence[str]) -> int:
             try:
                 workers = int(a.split("=", 1)[1])
             except ValueError:
-                raise ConfigError("workers", f"expected an integer, got {a.split('=', 1)[1]!r}") from None
+                value = a.split("=", 1)[1]
+                raise ConfigError("workers", f"expected an integer, got {value!r}") from None
     if workers is not None and workers < 1:
         raise ConfigError("workers", f"must be >= 1 (got {workers})")
     slurm = {}

@@ -214,7 +214,8 @@ def check_run_config(cfg: dict[str, Any]) -> None:
     _positive_int(log, "every", "log.every")
     sweep = check_type("sweep", cfg.get("sweep"), str)
     if not SAFE_NAME.match(sweep):
-        raise ConfigError("sweep", f"must be a folder name of letters, digits, '_', '-', '.' (got {sweep!r})")
+        raise ConfigError(
+            "sweep", f"must be a folder name of letters, digits, '_', '-', '.' (got {sweep!r})")
     check_type("results_dir", cfg.get("results_dir"), str)
     for group in GROUPS:
         if not isinstance(cfg.get(group), dict):

@@ -147,7 +147,8 @@ def write_records(run_dir: Path, trainer: Trainer) -> None:
     r = trainer.records
     records.atomic_write_text(run_dir / "eval.csv",
                               records.csv_text(records.EVAL_COLUMNS, (e.row() for e in r.evals)))
-    records.atomic_write_text(run_dir / "train.csv", records.csv_text(records.TRAIN_COLUMNS, r.train))
+    records.atomic_write_text(run_dir / "train.csv",
+                              records.csv_text(records.TRAIN_COLUMNS, r.train))
     records.atomic_write_text(run_dir / "scalars.csv",
                               records.csv_text(records.SCALAR_COLUMNS, r.scalars))
 
@@ -202,7 +203,8 @@ def _train(p: PreparedRun, progress: Any, log, existing: dict[str, Any] | None) 
     started = (existing or {}).get("started") or records.now_iso()
     prior_wall = float((existing or {}).get("wall_s") or 0.0)
     t0 = time.perf_counter()
-    records.atomic_write_text(run_dir / "config.yaml", OmegaConf.to_yaml(OmegaConf.create(p.config)))
+    records.atomic_write_text(run_dir / "config.yaml",
+                              OmegaConf.to_yaml(OmegaConf.create(p.config)))
     records.atomic_write_json(run_dir / "run.json", _run_json(p, "running", started))
     trainer = None
     try:

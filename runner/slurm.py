@@ -84,7 +84,8 @@ def run_submitit(planned, opts) -> Outcome:
                     display.finished(rid, "failed", doc.get("error") or "")
             if deadline is not None and time.monotonic() > deadline and left:
                 for rid, (job, _) in left.items():
-                    outcome.failed.append((rid, f"not finished within --timeout-min (job {job.job_id})"))
+                    reason = f"not finished within --timeout-min (job {job.job_id})"
+                    outcome.failed.append((rid, reason))
                 break
             display.refresh()
             time.sleep(0.5)

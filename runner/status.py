@@ -32,7 +32,8 @@ def run_states(folder: Path) -> list[dict]:
         if doc is None:
             state, reason, steps = "pending", "", 0
         else:
-            state, reason, steps = doc.get("status", "?"), doc.get("error") or "", doc.get("env_steps", 0)
+            state = doc.get("status", "?")
+            reason, steps = doc.get("error") or "", doc.get("env_steps", 0)
             if state == "complete":
                 state = "done"
             elif state == "running" and not _locked(run_dir):

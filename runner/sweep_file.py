@@ -48,12 +48,14 @@ def expand_file(path: Path, cli_overrides: list[str]) -> list[list[str]]:
         raise ConfigError("--sweep-file", f"{path} is not valid YAML: {err}") from None
     unknown = sorted(set(doc) - KEYS)
     if unknown:
-        raise ConfigError(f"sweep file.{unknown[0]}", f"unknown key (allowed: {', '.join(sorted(KEYS))})")
+        allowed = ", ".join(sorted(KEYS))
+        raise ConfigError(f"sweep file.{unknown[0]}", f"unknown key (allowed: {allowed})")
     for key in ("name", "version", "agents", "envs", "seeds"):
         if key not in doc:
             raise ConfigError(f"sweep file.{key}", "required")
     if not isinstance(doc["version"], int) or doc["version"] < 1:
-        raise ConfigError("sweep file.version", f"must be a positive integer (got {doc['version']!r})")
+        raise ConfigError("sweep file.version",
+                          f"must be a positive integer (got {doc['version']!r})")
     base = [f"env={_values('sweep file.envs', doc['envs'])}",
             f"seed={_values('sweep file.seeds', doc['seeds'])}",
             f"sweep={doc['name']}-v{doc['version']}"]

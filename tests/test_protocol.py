@@ -20,7 +20,8 @@ def test_discounted_return_matches_geometric_series(r, gamma, T):
 
 def test_episode_through_protocol_matches_closed_form():
     env = ConstantReward(reward=2.0, horizon=25)
-    agent = UniformRandom(env.observation_space, env.action_space, UniformRandom.Config(gamma=0.95), 0)
+    agent = UniformRandom(env.observation_space, env.action_space,
+                          UniformRandom.Config(gamma=0.95), 0)
     ret, disc, length = run_episode(agent, env, seed=1, gamma=0.95)
     assert (ret, length) == (50.0, 25)
     assert disc == pytest.approx(2.0 * (1 - 0.95**25) / (1 - 0.95), rel=1e-12)  # geometric series

@@ -36,7 +36,8 @@ def test_run_json_is_complete(run_dir):
     doc = json.loads((run_dir / "run.json").read_text())
     assert RUN_KEYS <= set(doc) and PROVENANCE_KEYS <= set(doc["provenance"])
     assert doc["status"] == "complete" and doc["error"] is None
-    assert (doc["agent"], doc["env"], doc["seed"], doc["env_steps"]) == ("dqn", "CartPole-v1", 4, 1500)
+    got = (doc["agent"], doc["env"], doc["seed"], doc["env_steps"])
+    assert got == ("dqn", "CartPole-v1", 4, 1500)
     assert doc["run_id"] == run_dir.name
 
 
@@ -91,7 +92,8 @@ def test_other_seed_gives_other_folder_and_episodes(run_dir, tmp_path):
     assert (other / "eval.csv").read_bytes() != (run_dir / "eval.csv").read_bytes()
 
 
-@pytest.mark.parametrize("env", ["acrobot", "mountaincar", "lunarlander", "frozenlake", "cliffwalking"])
+@pytest.mark.parametrize("env", ["acrobot", "mountaincar", "lunarlander", "frozenlake",
+                                 "cliffwalking"])
 def test_every_shipped_discrete_env_runs(env, tmp_path):
     d = run([f"env={env}", "agent=dqn", "steps=300", "eval.every=300", "eval.episodes=1",
              "agent.learning_starts=100"], results_dir=str(tmp_path))

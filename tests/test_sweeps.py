@@ -58,7 +58,8 @@ def test_failures_are_isolated_and_retry_failed_reruns_only_them(tmp_path, capsy
     runs = {json.loads((p / "config.yaml").parent.joinpath("run.json").read_text())["status"]
             for p in folder.iterdir() if p.is_dir() and not p.name.startswith("_")}
     assert runs == {"complete", "failed"}
-    healthy = [p for p in folder.glob("*/run.json") if json.loads(p.read_text())["status"] == "complete"]
+    healthy = [p for p in folder.glob("*/run.json")
+               if json.loads(p.read_text())["status"] == "complete"]
     assert len(healthy) == 1
     before = healthy[0].stat().st_mtime_ns
     for log in folder.glob("*/error.log"):
@@ -186,7 +187,8 @@ def test_folder_of_another_code_version_is_refused(tmp_path, capsys):
 def test_sweep_file_runs_its_plan(tmp_path, capsys):
     plan_file = tmp_path / "tiny.yaml"
     plan_file.write_text("name: tiny\nversion: 2\nagents: [random]\nenvs: [cartpole, acrobot]\n"
-                         "seeds: range(2)\nsteps: 400\noverrides: [eval.every=200, eval.episodes=1]\n")
+                         "seeds: range(2)\nsteps: 400\n"
+                         "overrides: [eval.every=200, eval.episodes=1]\n")
     assert main(["run", "--sweep-file", str(plan_file), f"results_dir={tmp_path}", "workers=2",
                  "--no-estimate", "--progress=quiet"]) == 0
     assert len(statuses(tmp_path / "tiny-v2")) == 4
