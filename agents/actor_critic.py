@@ -29,14 +29,19 @@ import torch
 from gymnasium import spaces
 
 from agents.base import Agent, Step, require
-from agents.common.distributions import ActionSampler, LogStdMode, PolicyHead, Squash
+from agents.common.distributions import (
+    POLICY_OUT_GAIN,
+    VALUE_OUT_GAIN,
+    ActionSampler,
+    LogStdMode,
+    PolicyHead,
+    Squash,
+    policy_supports,
+)
 from agents.common.networks import NumpyMLP, flat_dim, mlp
 from agents.common.optim import adam, clip_grad_norm
 from agents.common.returns import gae, nstep_returns
 from agents.common.rng import generator_states, load_generator_states, make_generators
-
-POLICY_OUT_GAIN = 0.01  # near-uniform initial policy (common practice, no source)
-VALUE_OUT_GAIN = 1.0
 
 
 class ActorCritic(Agent):
@@ -44,10 +49,7 @@ class ActorCritic(Agent):
 
     @classmethod
     def supports(cls, action_space: spaces.Space) -> bool:
-        """Discrete, or a 1-D Box (one Gaussian dimension per action component)."""
-        if isinstance(action_space, spaces.Box):
-            return len(action_space.shape) == 1
-        return isinstance(action_space, spaces.Discrete)
+        return policy_supports(action_space)
 
     @dataclass
     class Config:

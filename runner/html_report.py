@@ -68,8 +68,10 @@ def _figure(figures: dict[str, tuple[bytes, bytes]], name: str, alt: str) -> str
     return f"<img alt='{esc(alt)}' src='data:image/png;base64,{data}'>"
 
 
-def render(data: Any, summary: dict[str, Any], figures: dict[str, tuple[bytes, bytes]]) -> str:
-    """The whole page as a string."""
+def render(data: Any, summary: dict[str, Any], figures: dict[str, tuple[bytes, bytes]],
+           comparison: Any = None) -> str:
+    """The whole page as a string. ``comparison``: a :class:`runner.compare.ReportComparison`
+    or None; its section sits between markers so ``seedsweep compare`` can replace it."""
     conf = f"{summary['bootstrap']['confidence']:.0%}"
     parts = [
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
@@ -92,6 +94,8 @@ def render(data: Any, summary: dict[str, Any], figures: dict[str, tuple[bytes, b
         _table(["X", "Y", "P(X > Y)"],
                [[p["x"], p["y"], _iv(p)] for p in summary["probability_of_improvement"]], 2),
         _figure(figures, "probability_of_improvement", "probability of improvement"),
+        comparison_section(comparison.doc, comparison.note) if comparison is not None
+        else comparison_section(None),
         "<h2>Performance profiles</h2>",
         _figure(figures, "performance_profiles", "performance profiles"),
         "<h2>Sample efficiency</h2>",
@@ -181,3 +185,65 @@ def _provenance(data: Any) -> str:
         prov = json.loads(blob)
         rows.append([n] + [prov.get(k, "") for k in keys])
     return _table(["runs"] + keys, rows, 9)
+
+
+# -- the Comparison section (written by the report, replaced by ``seedsweep compare``) -------
+
+COMPARISON_START = "<!-- seedsweep:comparison:start -->"
+COMPARISON_END = "<!-- seedsweep:comparison:end -->"
+
+
+def comparison_section(doc: dict[str, Any] | None, note: str = "") -> str:
+    """The Comparison section between its markers (only the markers when there is none)."""
+    if doc is None and not note:
+        return COMPARISON_START + COMPARISON_END
+    parts = [COMPARISON_START, "<h2>Comparison</h2>"]
+    if note:
+        parts.append(f"<p class='bad'>{esc(note)}</p>")
+    if doc is not None:
+        parts.append(_comparison_body(doc))
+    parts.append(COMPARISON_END)
+    return "\n".join(parts)
+
+
+def _comparison_body(doc: dict[str, Any]) -> str:
+    b = doc["bootstrap"]
+    cand = doc["candidate"]
+    rows = [[c["baseline"], _iv(c["iqm_difference"]), _iv(c["probability_of_improvement"]),
+             c["verdict"], c["reason"]] for c in doc["comparisons"]]
+    env_rows = []
+    for c in doc["comparisons"]:
+        for env, cell in c["per_env"].items():
+            x, y = cell["raw_iqm"]["candidate"], cell["raw_iqm"]["baseline"]
+            env_rows.append([env, c["baseline"], f"{_raw(x)} ({x['n_seeds']})",
+                             f"{_raw(y)} ({y['n_seeds']})",
+                             _iv(cell["probability_of_improvement"])])
+    return "\n".join([
+        f"<p>Candidate <code>{esc(cand)}</code> against {len(doc['comparisons'])} baseline(s) "
+        f"on {len(doc['envs'])} env(s); {esc(b['confidence'])} stratified bootstrap intervals "
+        f"({esc(b['resamples'])} resamples, seed {esc(b['seed'])}). IQM difference: IQM of "
+        "normalised scores pooled over envs, candidate minus baseline. From "
+        "<code>report/compare.json</code>.</p>",
+        f"<p>Verdict rule: {esc(doc['verdict_rule'])}</p>",
+        _table(["baseline", "IQM difference", f"P({cand} > baseline)", "verdict", "why"],
+               rows, 1),
+        "<h3>Per env: IQM of raw scores over seeds (seeds)</h3>",
+        _table(["env", "baseline", cand, "baseline score", f"P({cand} > baseline)"],
+               env_rows, 2),
+    ])
+
+
+def _raw(d: dict[str, float]) -> str:
+    return f"{d['point']:.4g} [{d['low']:.4g}, {d['high']:.4g}]"
+
+
+def splice_comparison(page: str, section: str) -> str:
+    """``page`` with its Comparison section replaced by ``section`` (inserted before
+    ``</body>`` in a page made before the section existed)."""
+    start, end = page.find(COMPARISON_START), page.find(COMPARISON_END)
+    if start != -1 and end > start:
+        return page[:start] + section + page[end + len(COMPARISON_END):]
+    at = page.rfind("</body>")
+    if at == -1:
+        return page + section + "\n"
+    return page[:at] + section + "\n" + page[at:]

@@ -6,6 +6,9 @@ score (:mod:`runner.scores`), computes aggregates with stratified bootstrap inte
 (:mod:`runner.stats`) and writes ``results/<sweep>/report/``: summary.json, scores.csv,
 curves.csv, figures (PNG and SVG) and report.html. The report is built in a temporary
 folder and renamed into place, so a failed or refused report never leaves a partial one.
+With ``--candidate NAME`` (or when the old report folder has a compare.json, which is then
+recomputed from its recorded request) the report also carries compare.json and a Comparison
+section (:mod:`runner.compare`).
 """
 
 from __future__ import annotations
@@ -64,6 +67,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--random-episodes", type=int, default=None,
                    help="episodes when the random score must be measured (default: max(100, "
                    "eval.episodes))")
+    p.add_argument("--candidate", default=None,
+                   help="also compare this agent with baselines (see seedsweep compare)")
+    p.add_argument("--baseline", action="append", default=None,
+                   help="a baseline for --candidate (repeat; default: all but random)")
     p.add_argument("--no-figures", action="store_true", help="skip figures (faster)")
     p.add_argument("--quiet", action="store_true", help="no terminal summary")
     return p
@@ -543,8 +550,10 @@ def curves_csv(data: ReportData) -> str:
                      "normalised_return"), rows)
 
 
-def write_report(data: ReportData, with_figures: bool = True) -> Path:
-    """Build the report in a temporary folder beside the final one, then rename it in."""
+def write_report(data: ReportData, with_figures: bool = True, comparison: Any = None) -> Path:
+    """Build the report in a temporary folder beside the final one, then rename it in.
+    ``comparison`` (:class:`runner.compare.ReportComparison`) adds compare.json and the
+    page's Comparison section."""
     from runner import html_report
     from runner.records import atomic_write_bytes, atomic_write_text, fsync_dir
 
@@ -566,7 +575,10 @@ def write_report(data: ReportData, with_figures: bool = True) -> Path:
         atomic_write_text(tmp / "summary.json", json.dumps(summary, indent=2, default=_json) + "\n")
         atomic_write_text(tmp / "scores.csv", scores_csv(data))
         atomic_write_text(tmp / "curves.csv", curves_csv(data))
-        atomic_write_text(tmp / "report.html", html_report.render(data, summary, figures))
+        if comparison is not None:
+            atomic_write_text(tmp / "compare.json", comparison.text)
+        atomic_write_text(tmp / "report.html",
+                          html_report.render(data, summary, figures, comparison))
         old = None
         if target.exists():
             old = Path(tempfile.mkdtemp(prefix=".report-old-", dir=sweep_dir))
@@ -589,7 +601,7 @@ def _json(value: Any) -> Any:
     raise TypeError(f"not JSON serialisable: {type(value).__name__}")
 
 
-def print_summary(data: ReportData, target: Path) -> None:
+def print_summary(data: ReportData, target: Path, comparison: Any = None) -> None:
     from rich.console import Console
     from rich.table import Table
 
@@ -614,6 +626,12 @@ def print_summary(data: ReportData, target: Path) -> None:
     if data.problems:
         console.print(f"{len(data.problems)} run(s) left out; listed in the report.",
                       markup=False)
+    if comparison is not None and comparison.doc is not None:
+        for c in comparison.doc["comparisons"]:
+            console.print(f"{comparison.doc['candidate']} vs {c['baseline']}: {c['verdict']}",
+                          markup=False)
+    if comparison is not None and comparison.note:
+        console.print(comparison.note, markup=False)
     console.print(f"report: {target}", markup=False)
 
 
@@ -624,12 +642,15 @@ def _fmt_iv(iv: stats.Interval) -> str:
 def report_main(argv: list[str]) -> int:
     """``seedsweep report results/<sweep> [options]``; returns the exit status."""
     try:
+        from runner import compare
+
         opts = parse_options(argv)
         data = compute_report(opts)
-        target = write_report(data, with_figures=not opts.no_figures)
+        comparison = compare.for_report(opts)  # refusals come before anything is written
+        target = write_report(data, with_figures=not opts.no_figures, comparison=comparison)
     except ConfigError as err:
         print(f"seedsweep: error: {err}", file=sys.stderr)
         return 2
     if not opts.quiet:
-        print_summary(data, target)
+        print_summary(data, target, comparison)
     return 0

@@ -261,3 +261,16 @@ class ActionSampler:
     def load_state_dict(self, state: dict) -> None:
         p = state["pending"]
         self._pending = None if p is None else (p[0].numpy().copy(), p[1].numpy().copy())
+
+
+# Output-layer gains of policy-gradient networks: a near-uniform initial policy and a value
+# head at unit scale (common practice, no source).
+POLICY_OUT_GAIN = 0.01
+VALUE_OUT_GAIN = 1.0
+
+
+def policy_supports(action_space: spaces.Space) -> bool:
+    """Discrete (categorical policy), or a 1-D Box (one Gaussian dimension per component)."""
+    if isinstance(action_space, spaces.Box):
+        return len(action_space.shape) == 1
+    return isinstance(action_space, spaces.Discrete)
