@@ -96,6 +96,7 @@ class Agent(abc.ABC):
     """
 
     action_spaces: ClassVar[tuple[type[spaces.Space], ...]] = ()
+    contract_version: ClassVar[int] = CONTRACT_VERSION  # the contract this agent was written to
     Config: ClassVar[type]
 
     def __init__(
@@ -105,6 +106,10 @@ class Agent(abc.ABC):
         config: Any,
         seed: int,
     ):
+        if not type(self).supports(action_space):
+            allowed = ", ".join(s.__name__ for s in type(self).action_spaces)
+            raise ValueError(f"{type(self).__name__} does not support {action_space} "
+                             f"(supports: {allowed})")
         self.observation_space = observation_space
         self.action_space = action_space
         self.config = config

@@ -91,7 +91,8 @@ def _kill_after(args, folder: Path, checkpoints: int) -> None:
     ["agent=dqn", "env=cartpole", "agent.learning_starts=200"],  # whole envs pickled
     # box2d envs do not pickle: snapshots at episode ends (short episodes: frequent ones)
     ["agent=dqn", "env=lunarlander", "env.max_episode_steps=150", "agent.learning_starts=200"],
-], ids=["pickled-envs", "reset-snapshots"])
+    ["agent=actor_critic", "env=cartpole"],  # 8 envs in gymnasium's sync vector env
+], ids=["pickled-envs", "reset-snapshots", "vector-envs"])
 def test_sigkilled_run_resumes_to_byte_identical_eval_csv(tmp_path, extra):
     base = ["run", *extra, "steps=3000", "eval.every=500", "eval.episodes=2",
             "checkpoint.every=400", "--progress=quiet"]

@@ -38,7 +38,7 @@ def mlp(
     dims = [in_dim, *hidden, out_dim]
     layers: list[nn.Module] = []
     for i, (a, b) in enumerate(zip(dims[:-1], dims[1:], strict=True)):
-        linear = nn.Linear(a, b)
+        linear = nn.utils.skip_init(nn.Linear, a, b)  # no draw from torch's global RNG
         last = i == len(dims) - 2
         _init_linear(linear, generator, init, out_gain if last else math.sqrt(2.0))
         layers.append(linear)
