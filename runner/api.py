@@ -9,11 +9,15 @@ from runner.config import compose
 from runner.run import execute, prepare
 
 
-def run(overrides: Sequence[str], *, results_dir: str | None = None, quiet: bool = True) -> Path:
-    """Run one run from hydra-style overrides; returns its folder. Raises ConfigError."""
+def run(overrides: Sequence[str], *, results_dir: str | None = None, quiet: bool = True,
+        config_dirs: Sequence[str | Path] = ()) -> Path:
+    """Run one run from hydra-style overrides; returns its folder. Raises ConfigError.
+
+    ``config_dirs`` are extra config folders, as ``--config-dir`` on the command line.
+    """
     overrides = list(overrides)
     if results_dir is not None:
         overrides.append(f"results_dir={results_dir}")
-    prepared = prepare(compose(overrides))
+    prepared = prepare(compose(overrides, [Path(d) for d in config_dirs]))
     execute(prepared, progress="quiet" if quiet else "auto")
     return prepared.run_dir

@@ -215,11 +215,18 @@ def configs_main(argv: Sequence[str]) -> int:
 
     from runner.config import config_dir, group_options
 
-    root = config_dir()
+    parser = argparse.ArgumentParser(prog="seedsweep configs",
+                                     description="list the agent, env, suite and sweep configs")
+    parser.add_argument("--config-dir", action="append", default=[],
+                        help="extra config folder (agent/, env/, suite/, sweep/ inside)")
+    opts = parser.parse_args(list(argv))
+    roots = [config_dir(), *map(Path, opts.config_dir)]
     for group in ("agent", "env", "suite", "sweep"):
         print(f"{group}:" if group != "sweep" else "sweep files (--sweep-file):")
-        for name in group_options(group):
-            doc = yaml.safe_load((root / group / f"{name}.yaml").read_text()) or {}
+        for name in group_options(group, opts.config_dir):
+            path = next(r / group / f"{name}.yaml" for r in roots
+                        if (r / group / f"{name}.yaml").is_file())
+            doc = yaml.safe_load(path.read_text()) or {}
             detail = doc.get("id") or doc.get("entry") or doc.get("description") or ""
             print(f"  {name:<24}{detail}")
     return 0
