@@ -13,7 +13,6 @@ from typing import Any
 
 import numpy as np
 import torch
-import torch.nn.functional as F
 from gymnasium import spaces
 
 from agents.base import Agent, Step, require
@@ -79,6 +78,7 @@ class DQN(Agent):
         self.q_numpy = NumpyMLP(self.q)
         self.target_numpy = NumpyMLP(self.target)
         self.opt = self.flat.adam(c.lr)
+        self._grads = self.q_numpy.grad_views(self.q)  # views into self.flat.grad
         self.buffer = ReplayBuffer(c.buffer_size, (self.obs_dim,))
         self.epsilon = LinearSchedule(c.eps_start, c.eps_end, c.eps_decay_steps)
         self.env_steps = 0
@@ -132,11 +132,16 @@ class DQN(Agent):
             best = next_target.argmax(axis=1)
         next_value = next_target[np.arange(len(best)), best]
         target = b["rewards"] + np.float32(c.gamma) * (1.0 - b["terminated"]) * next_value
-        actions = torch.from_numpy(b["actions"]).unsqueeze(1)
-        q_taken = self.q(torch.from_numpy(b["obs"])).gather(1, actions).squeeze(1)
-        loss = F.smooth_l1_loss(q_taken, torch.from_numpy(target))
-        self.flat.zero_grad()
-        loss.backward()
+        # Huber loss (smooth L1, beta 1, mean over the batch) and its gradient, back-propagated
+        # by hand through the MLP into the flat gradient; then torch's fused Adam.
+        q, inputs = self.q_numpy.forward_train(b["obs"])
+        rows = np.arange(len(best))
+        error = q[rows, b["actions"]] - target
+        abs_error = np.abs(error)
+        loss = float(np.mean(np.where(abs_error < 1.0, 0.5 * error * error, abs_error - 0.5)))
+        grad_q = np.zeros_like(q)
+        grad_q[rows, b["actions"]] = np.clip(error, -1.0, 1.0) / len(error)
+        self.q_numpy.backward(inputs, grad_q, self._grads)
         self.flat.clip_grad_norm_(c.max_grad_norm)
         self.opt.step()
         self.updates += 1
@@ -144,7 +149,7 @@ class DQN(Agent):
             with torch.no_grad():
                 torch._foreach_lerp_(list(self.target.parameters()), list(self.q.parameters()),
                                      c.polyak)
-        return float(loss.detach())
+        return loss
 
     # -- state ---------------------------------------------------------------------------
     def state_dict(self) -> dict[str, Any]:

@@ -55,8 +55,6 @@ class TrainEnvs:
             probe = self._single
             self.single_observation_space = probe.observation_space
             self.single_action_space = probe.action_space
-            # Discrete.contains() is several times faster on a python int than on np.int64.
-            self._to_env = int if isinstance(probe.action_space, gym.spaces.Discrete) else None
         else:
             cls = AsyncVectorEnv if vector_mode == "async" else SyncVectorEnv
             self._single = None
@@ -69,6 +67,7 @@ class TrainEnvs:
             )
         self._returns = np.zeros(num_envs, dtype=np.float64)
         self._lengths = np.zeros(num_envs, dtype=np.int64)
+        self._return1, self._length1 = 0.0, 0  # the same, on the one-env path
         self.vector_mode = vector_mode
         self.track_resets = False  # set by the runner when it checkpoints at episode ends
         self.reset_rng_state: dict | None = None  # env RNG just before the last reset
@@ -84,6 +83,7 @@ class TrainEnvs:
             obs, _ = self._vector.reset(seed=seed)
         self._returns[:] = 0.0
         self._lengths[:] = 0
+        self._return1, self._length1 = 0.0, 0
         return self._observe(obs)
 
     def step(self, actions: np.ndarray):
@@ -92,19 +92,18 @@ class TrainEnvs:
         ``finished`` lists ``(raw_return, length)`` of the episodes that ended this step.
         """
         if self._single is not None:
-            action = actions[0] if self._to_env is None else self._to_env(actions[0])
-            obs, reward, term, trunc, _ = self._single.step(action)
-            self._returns[0] += reward
-            self._lengths[0] += 1
+            obs, reward, term, trunc, _ = self._single.step(actions[0])
+            self._return1 += reward  # python numbers: cheaper than numpy scalars per step
+            self._length1 += 1
             next_obs = np.asarray(obs)[None]
             rewards = np.array([reward], dtype=np.float64)
             terminated = _FLAGS[bool(term)]
             truncated = _FLAGS[bool(trunc)]
             finished = _NONE
             if term or trunc:
-                finished = [(float(self._returns[0]), int(self._lengths[0]))]
-                self._returns[0] = 0.0
-                self._lengths[0] = 0
+                finished = [(float(self._return1), self._length1)]
+                self._return1 = 0.0
+                self._length1 = 0
                 if self.track_resets:
                     self.reset_rng_state = _rng_state(self._single)
                 reset_obs, _ = self._single.reset()
@@ -164,6 +163,8 @@ class TrainEnvs:
         return "reset" if self.num_envs == 1 else "none"
 
     def state_dict(self, kind: str) -> dict[str, Any]:
+        if self._single is not None:
+            self._returns[0], self._lengths[0] = self._return1, self._length1
         state: dict[str, Any] = {
             "kind": kind,
             "returns": torch.from_numpy(self._returns.copy()),
@@ -184,6 +185,7 @@ class TrainEnvs:
         """Restore the envs; returns the observation to act on next."""
         self._returns[:] = state["returns"].numpy()
         self._lengths[:] = state["lengths"].numpy()
+        self._return1, self._length1 = float(self._returns[0]), int(self._lengths[0])
         if self.normalizer is not None:
             self.normalizer.load_state_dict(state["normalizer"])
         raw = state["raw_obs"].numpy()

@@ -109,8 +109,13 @@ class Trainer:
         obs = self.obs
         steps = self.env_steps
         next_check = steps + CHECK_EVERY
+        budget = sched.budget
+        train = self.records.train
+        latest = self.latest
+        # One comparison per step: the nearest of all periodic events decides when to look.
+        next_event = self._next_event(next_check)
         try:
-            while steps < sched.budget:
+            while steps < budget:
                 actions = agent.act(obs, True)
                 nxt, rewards, next_obs, terminated, truncated, finished = envs.step(actions)
                 steps += n
@@ -121,20 +126,20 @@ class Trainer:
                     for key, value in metrics.items():
                         if not math.isfinite(value):
                             raise NonFiniteError(f"{key} is {value} at env step {steps}")
-                    self.latest.update(metrics)
+                    latest.update(metrics)
                 if finished:
                     for ret, length in finished:
-                        self.records.train.append((steps, ret, length))
+                        train.append((steps, ret, length))
                 obs = nxt
+                if steps < next_event:
+                    continue
+                self.obs, self.env_steps = obs, steps
                 if steps >= next_check:
                     next_check = steps + CHECK_EVERY
-                    self.obs, self.env_steps = obs, steps
                     self._tick()
                 if steps >= self.next_log:
-                    self.obs, self.env_steps = obs, steps
                     self._log_scalars()
                 if steps >= self.next_eval:
-                    self.obs, self.env_steps = obs, steps
                     self._evaluate()
                 if steps >= self.next_checkpoint:
                     while self.next_checkpoint <= steps:
@@ -142,10 +147,12 @@ class Trainer:
                     self._checkpoint_pending = True
                 if self._checkpoint_pending and (finished or self.snapshot_kind == "pickle"):
                     # "reset" snapshots exist only right after an episode ended and reset
-                    self.obs, self.env_steps = obs, steps
                     self._checkpoint_pending = False
                     if self.on_checkpoint is not None:
                         self.on_checkpoint(self)
+                # while a checkpoint waits for an episode end, look at every step
+                next_event = steps + n if self._checkpoint_pending else self._next_event(
+                    next_check)
         finally:
             self.obs, self.env_steps = obs, steps
         if not self.records.evals or self.records.evals[-1].env_step != steps:
@@ -153,6 +160,9 @@ class Trainer:
         return self.records
 
     # -- periodic work -------------------------------------------------------------------
+    def _next_event(self, next_check: int) -> float:
+        return min(next_check, self.next_log, self.next_eval, self.next_checkpoint)
+
     def _tick(self) -> None:
         now = time.perf_counter()
         if now > self._clock:

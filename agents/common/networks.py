@@ -88,6 +88,54 @@ class NumpyMLP:
                 np.tanh(h, out=h)
         return h
 
+    def forward_train(self, x: np.ndarray) -> tuple[np.ndarray, list[np.ndarray]]:
+        """Forward pass that keeps each layer's input, for :meth:`backward`."""
+        h = np.asarray(x, dtype=np.float32)
+        inputs = []
+        for (wt, b), act in zip(self._layers, self._acts, strict=True):
+            inputs.append(h)
+            h = h @ wt + b
+            if act == "relu":
+                np.maximum(h, 0.0, out=h)
+            elif act == "tanh":
+                np.tanh(h, out=h)
+        return h, inputs
+
+    def backward(self, inputs: list[np.ndarray], grad_out: np.ndarray,
+                 grads: list[tuple[np.ndarray, np.ndarray]]) -> None:
+        """Back-propagate ``grad_out`` (d loss / d output) and write d loss / d W, d loss / d b
+        of every layer into ``grads`` (numpy views of the torch ``.grad`` tensors).
+
+        The same arithmetic autograd does for ``Linear`` + ReLU/tanh, without its per-op
+        dispatch; tests check it against ``torch.autograd``.
+        """
+        g = np.asarray(grad_out, dtype=np.float32)
+        for i in range(len(self._layers) - 1, -1, -1):
+            wt, _ = self._layers[i]
+            dw, db = grads[i]
+            h_in = inputs[i]
+            np.matmul(g.T, h_in, out=dw)
+            np.sum(g, axis=0, out=db)
+            if i == 0:
+                break
+            g = g @ wt.T
+            act = self._acts[i - 1]
+            if act == "relu":
+                g *= inputs[i] > 0  # the next layer's input is relu(z): > 0 exactly where z > 0
+            elif act == "tanh":
+                g *= 1.0 - inputs[i] * inputs[i]
+
+    def grad_views(self, net: nn.Sequential) -> list[tuple[np.ndarray, np.ndarray]]:
+        """Numpy views of the ``.grad`` of each Linear of ``net`` (allocated if missing)."""
+        views = []
+        for m in net:
+            if isinstance(m, nn.Linear):
+                for p in (m.weight, m.bias):
+                    if p.grad is None:
+                        p.grad = torch.zeros_like(p)
+                views.append((m.weight.grad.numpy(), m.bias.grad.numpy()))
+        return views
+
 
 def flat_dim(space) -> int:
     """Length of the flat float vector an MLP sees for a Box observation space."""
