@@ -28,6 +28,15 @@ CASES = [
     (["nokey=1"], "nokey: unknown key"),
     (["seed=0,1"], "seed: several values given; add -m"),
     (["sweep=../x"], "sweep: must be a folder name"),
+    # policy-gradient agents
+    (["agent=actor_critic", "agent.gae_lambda=1.5"], "agent.gae_lambda: must be in [0, 1]"),
+    (["agent=actor_critic", "agent.gae_lambda=-0.1"], "agent.gae_lambda: must be in [0, 1]"),
+    (["agent=actor_critic", "agent.num_envs=0"], "agent.num_envs: must be >= 1"),
+    (["agent=reinforce", "agent.episodes_per_update=0"], "agent.episodes_per_update: must be >= 1"),
+    (["agent=reinforce", "env.id=tests.toy_envs:MultiDiscreteActions", "env.max_episode_steps=10"],
+     "agent: reinforce does not support"),
+    (["agent=actor_critic", "env.id=tests.toy_envs:MultiDiscreteActions",
+      "env.max_episode_steps=10"], "agent: actor_critic does not support"),
 ]
 
 

@@ -40,3 +40,11 @@ class OutOfSpace(ConstantReward):
 
     def _obs(self):
         return np.array([5.0, 5.0], np.float32)
+
+
+class MultiDiscreteActions(ConstantReward):
+    """Actions from MultiDiscrete([2, 3]): neither a categorical nor a Gaussian policy fits."""
+
+    def __init__(self, reward: float = 1.0, horizon: int = 10):
+        super().__init__(reward, horizon)
+        self.action_space = spaces.MultiDiscrete([2, 3])
