@@ -187,9 +187,10 @@ def _number_or_text(value: str):
 
 def _run_single(p, opts) -> int:
     """One run in this process, with its own progress display; same skip/resume rules."""
-    from runner.run import RunBusy, execute
+    from runner.run import RunBusy, execute, interrupt_on_sigterm
     from runner.sweep import check_code_version
 
+    interrupt_on_sigterm()
     check_code_version(p.run_dir.parent, opts.allow_mixed_code)
     try:
         doc = execute(p, progress=opts.progress, retry_failed=opts.retry_failed)

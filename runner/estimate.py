@@ -19,6 +19,7 @@ from runner.progress import _fmt_eta
 from runner.records import atomic_write_json
 
 CALIBRATION_STEPS = 2000
+STARTUP_S = 3.5  # per run: a fresh process importing torch and gymnasium (measured here, 2-4 s)
 
 
 def cache_file() -> Path:
@@ -82,10 +83,11 @@ def estimate_wall_time(to_run, workers: int) -> str:
         else:
             per_pair[key] = calibrate(p)
             sources["calibration"] += 1
-    work = sorted((per_pair[_key(p)] * int(p.config["steps"]) for p in to_run), reverse=True)
+    work = sorted((per_pair[_key(p)] * int(p.config["steps"]) + STARTUP_S for p in to_run),
+                  reverse=True)
     lanes = [0.0] * max(1, workers)
     for w in work:  # longest first onto the least loaded worker
         lanes[lanes.index(min(lanes))] += w
     where = ", ".join(f"{n} pair(s) from {s}" for s, n in sources.items() if n)
     return (f"seedsweep: {len(to_run)} runs on {workers} worker(s): estimated wall time "
-            f"{_fmt_eta(max(lanes))} ({where})")
+            f"{_fmt_eta(max(lanes))} ({where}; {STARTUP_S:.1f} s start-up per run)")

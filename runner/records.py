@@ -22,12 +22,22 @@ SCALAR_COLUMNS = ("env_step", "key", "value")
 HASH_EXCLUDED = ("sweep", "results_dir")
 
 
+def _read_umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+_UMASK = _read_umask()
+
+
 def atomic_write_bytes(path: Path, data: bytes) -> None:
     """Write ``data`` to ``path`` so readers see the old file or the new one, never a mix."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        os.fchmod(fd, 0o666 & ~_UMASK)  # mkstemp makes 0600; results are for the group too
         with os.fdopen(fd, "wb") as f:
             f.write(data)
             f.flush()
@@ -119,10 +129,12 @@ def code_root() -> Path:
 
 
 _CODE_VERSION: str | None = None
+RESULT_MODULES = ("run", "loop", "protocol", "seeding", "checkpoints", "config", "records")
 
 
 def code_version() -> str:
-    """Hash of the python source of runner/, agents/ and envs/: what computes the results.
+    """Hash of the source that computes a run's results: agents/, envs/ and the runner's
+    training, evaluation and record modules (not the report, CLI or launchers).
 
     Unlike the git commit it also changes with uncommitted edits, and not with docs.
     """
@@ -130,8 +142,9 @@ def code_version() -> str:
     if _CODE_VERSION is None:
         h = hashlib.sha256()
         root = code_root()
-        for pkg in ("runner", "agents", "envs"):
-            for f in sorted((root / pkg).rglob("*.py")):
+        files = [*(root / "agents").rglob("*.py"), *(root / "envs").rglob("*.py"),
+                 *(root / "runner" / f"{m}.py" for m in RESULT_MODULES)]
+        for f in sorted(files):
                 h.update(str(f.relative_to(root)).encode())
                 h.update(f.read_bytes())
         _CODE_VERSION = h.hexdigest()[:12]

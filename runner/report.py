@@ -29,7 +29,7 @@ from typing import Any
 import numpy as np
 
 from agents.base import ConfigError
-from runner import scores, stats
+from runner import records, scores, stats
 from runner.scores import RANDOM_AGENT, Problem, Reference, Run
 
 ORACLE_PROTOCOL = (
@@ -560,6 +560,7 @@ def write_report(data: ReportData, with_figures: bool = True, comparison: Any = 
     sweep_dir = data.sweep.path
     target = sweep_dir / "report"
     tmp = Path(tempfile.mkdtemp(prefix=".report-tmp-", dir=sweep_dir))
+    tmp.chmod(0o777 & ~records._UMASK)  # mkdtemp makes 0700
     try:
         figures: dict[str, tuple[bytes, bytes]] = {}
         if with_figures:

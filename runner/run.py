@@ -153,6 +153,27 @@ def write_records(run_dir: Path, trainer: Trainer) -> None:
                               records.csv_text(records.SCALAR_COLUMNS, r.scalars))
 
 
+def _progress_records(p: PreparedRun, run_dir: Path, trainer: Trainer, started: str) -> None:
+    """After each evaluation: the CSV records, and run.json's env_steps for ``status``."""
+    write_records(run_dir, trainer)
+    records.atomic_write_json(run_dir / "run.json",
+                              _run_json(p, "running", started, env_steps=trainer.env_steps))
+
+
+def interrupt_on_sigterm() -> None:
+    """Turn SIGTERM (what a cluster sends before killing a job) into KeyboardInterrupt, so
+    the run records itself as interrupted, not failed, and resumes next time."""
+    import signal
+
+    def handler(signum, frame):
+        raise KeyboardInterrupt(f"signal {signum}")
+
+    try:
+        signal.signal(signal.SIGTERM, handler)
+    except ValueError:  # not the main thread: leave the default
+        pass
+
+
 class RunBusy(RuntimeError):
     """Another process holds this run's lock: it is running elsewhere right now."""
 
@@ -225,7 +246,7 @@ def _train(p: PreparedRun, progress: Any, log, existing: dict[str, Any] | None) 
                else progress.for_run(p.label, schedule.budget))
         trainer = Trainer(
             agent, envs, eval_env, schedule, p.seeds.train_env, p.seeds.eval_episodes, bar,
-            on_evaluation=lambda t: write_records(run_dir, t),
+            on_evaluation=lambda t: _progress_records(p, run_dir, t, started),
             on_checkpoint=lambda t: checkpoints.save(run_dir, t.capture(), t.env_steps),
         )
         if schedule.checkpoint_every:
@@ -233,8 +254,9 @@ def _train(p: PreparedRun, progress: Any, log, existing: dict[str, Any] | None) 
             envs.track_resets = trainer.snapshot_kind == "reset"
             if trainer.snapshot_kind == "none":
                 trainer.next_checkpoint = math.inf
-                log(f"seedsweep: warning: {p.run_id}: its envs cannot be saved "
-                    "(async vector env of unpicklable envs); no training checkpoints")
+                log(f"seedsweep: warning: {p.run_id}: the state of its {envs.num_envs} envs "
+                    "cannot be saved (async vector env, or envs that do not pickle); "
+                    "no training checkpoints, an interrupted run restarts")
         resumed = _resume(trainer, run_dir, log) if existing else None
         from torch.utils.tensorboard import SummaryWriter
 
@@ -267,10 +289,15 @@ def _train(p: PreparedRun, progress: Any, log, existing: dict[str, Any] | None) 
 
             remember(p, loop_s / max(1, trainer.env_steps))
         return doc
+    except KeyboardInterrupt:
+        # Ctrl-C or SIGTERM (a cluster's preemption): not a failure; the run stays resumable.
+        doc = _run_json(p, "running", started, env_steps=trainer.env_steps if trainer else 0,
+                        wall_s=round(prior_wall + time.perf_counter() - t0, 3),
+                        interrupted=records.now_iso())
+        records.atomic_write_json(run_dir / "run.json", doc)
+        raise
     except BaseException as err:
         reason = f"{type(err).__name__}: {err}".splitlines()[0]
-        if isinstance(err, KeyboardInterrupt):
-            reason = "interrupted (KeyboardInterrupt)"
         records.atomic_write_text(run_dir / "error.log", traceback.format_exc())
         doc = _run_json(
             p, "failed", started, env_steps=trainer.env_steps if trainer else 0,

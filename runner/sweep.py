@@ -45,6 +45,8 @@ def plan(overrides: Sequence[str], multirun: bool = False,
     combos = [c for group in apply_suite(overrides, extra_dirs) for c in expand(group, multirun)]
     if not combos:
         raise ConfigError("overrides", "the sweep is empty")
+    if len(combos) > 1 and not multirun:
+        raise ConfigError("suite", f"this gives {len(combos)} runs; add -m to run a sweep")
     planned = [prepare(compose(c, extra_dirs)) for c in combos]
     seen: set[str] = set()
     for p in planned:

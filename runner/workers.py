@@ -56,8 +56,9 @@ def run_job(config: dict[str, Any], retry_failed: bool = False, progress: Any = 
     Skip, resume and locking are the same wherever it runs. Returns the final run.json, or
     ``{"status": "busy"}`` if another process holds the run's lock.
     """
-    from runner.run import RunBusy, execute, prepare
+    from runner.run import RunBusy, execute, interrupt_on_sigterm, prepare
 
+    interrupt_on_sigterm()
     prepared = prepare(config)
     try:
         return execute(prepared, progress=progress, retry_failed=retry_failed)

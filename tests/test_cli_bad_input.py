@@ -28,6 +28,8 @@ CASES = [
     (["nokey=1"], "nokey: unknown key"),
     (["seed=0,1"], "seed: several values given; add -m"),
     (["sweep=../x"], "sweep: must be a folder name"),
+    (["suite=classic_control"], "several values given; add -m"),
+    (["suite=nosuch"], "suite: unknown suite 'nosuch' (allowed: "),
     # policy-gradient agents
     (["agent=actor_critic", "agent.gae_lambda=1.5"], "agent.gae_lambda: must be in [0, 1]"),
     (["agent=actor_critic", "agent.gae_lambda=-0.1"], "agent.gae_lambda: must be in [0, 1]"),

@@ -106,3 +106,9 @@ def test_multirun_runs_each_point(tmp_path, capsys):
     assert code == 0
     runs = sorted(p.name for p in (tmp_path / "m").iterdir() if p.is_dir())
     assert [r.split("-")[2] for r in runs] == ["s0", "s1", "s2"]
+
+
+def test_gradient_clipping_can_be_switched_off(tmp_path):
+    d = run(["agent=actor_critic", "agent.max_grad_norm=null", "steps=400", "eval.every=400",
+             "eval.episodes=1"], results_dir=str(tmp_path))
+    assert json.loads((d / "run.json").read_text())["status"] == "complete"

@@ -71,8 +71,8 @@ def test_failures_are_isolated_and_retry_failed_reruns_only_them(tmp_path, capsy
     assert healthy[0].stat().st_mtime_ns == before
 
 
-def _kill_after(args, folder: Path, checkpoints: int) -> None:
-    """Start a real run process and SIGKILL it once it has written `checkpoints` checkpoints."""
+def _kill_after(args, folder: Path, checkpoints: int, sig=signal.SIGKILL) -> int:
+    """Start a real run process and kill it once it has written `checkpoints` checkpoints."""
     proc = subprocess.Popen([sys.executable, "-m", "runner.cli", *args], cwd=ROOT,
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     deadline = time.monotonic() + 240
@@ -83,8 +83,8 @@ def _kill_after(args, folder: Path, checkpoints: int) -> None:
             break
         time.sleep(0.02)
     if proc.poll() is None:
-        os.kill(proc.pid, signal.SIGKILL)
-    proc.wait()
+        os.kill(proc.pid, sig)
+    return proc.wait()
 
 
 @pytest.mark.parametrize("extra", [
@@ -108,6 +108,20 @@ def test_sigkilled_run_resumes_to_byte_identical_eval_csv(tmp_path, extra):
     (ref,) = [p for p in (tmp_path / "ref").iterdir() if p.is_dir()]
     assert (run_dir / "eval.csv").read_bytes() == (ref / "eval.csv").read_bytes()
     assert (run_dir / "train.csv").read_bytes() == (ref / "train.csv").read_bytes()
+
+
+def test_sigterm_leaves_the_run_resumable_without_retry(tmp_path):
+    """SIGTERM (what SLURM sends before it kills a job) records an interruption, not a failure."""
+    base = ["run", "agent=dqn", "env=cartpole", "agent.learning_starts=200", "steps=2400",
+            "eval.every=400", "eval.episodes=2", "checkpoint.every=300", "--progress=quiet",
+            f"results_dir={tmp_path}"]
+    code = _kill_after(base, tmp_path / "default", 2, sig=signal.SIGTERM)
+    assert code == 130  # the CLI's exit status for an interruption
+    (run_dir,) = [p for p in (tmp_path / "default").iterdir() if p.is_dir()]
+    doc = json.loads((run_dir / "run.json").read_text())
+    assert doc["status"] == "running" and doc["interrupted"] and doc["error"] is None
+    done = run_cli(*base)
+    assert done.returncode == 0 and "resuming from env step" in done.stderr
 
 
 def test_corrupt_checkpoint_falls_back_to_the_previous_one(tmp_path):

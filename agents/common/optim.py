@@ -21,10 +21,11 @@ def adam(params: Iterable[torch.nn.Parameter], lr: float, eps: float = 1e-8) -> 
 
 
 def clip_grad_norm(params: Iterable[torch.nn.Parameter], max_norm: float | None) -> float:
-    """Clip gradients to ``max_norm`` (no-op when None or <= 0); returns the norm before."""
+    """Clip gradients to ``max_norm`` (no clipping when None or <= 0); returns the global
+    gradient norm before clipping either way."""
     params = [p for p in params if p.grad is not None]
     if not max_norm or max_norm <= 0:
-        return float("nan")
+        max_norm = float("inf")
     return float(torch.nn.utils.clip_grad_norm_(params, max_norm, foreach=True))
 
 
