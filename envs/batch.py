@@ -68,6 +68,7 @@ class TrainEnvs:
         self._returns = np.zeros(num_envs, dtype=np.float64)
         self._lengths = np.zeros(num_envs, dtype=np.int64)
         self._return1, self._length1 = 0.0, 0  # the same, on the one-env path
+        self._reward_arrays: dict[float, np.ndarray] = {}
         self.vector_mode = vector_mode
         self.track_resets = False  # set by the runner when it checkpoints at episode ends
         self.reset_rng_state: dict | None = None  # env RNG just before the last reset
@@ -96,7 +97,12 @@ class TrainEnvs:
             self._return1 += reward  # python numbers: cheaper than numpy scalars per step
             self._length1 += 1
             next_obs = np.asarray(obs)[None]
-            rewards = np.array([reward], dtype=np.float64)
+            rewards = self._reward_arrays.get(reward)
+            if rewards is None:  # most envs pay few distinct rewards: keep read-only arrays
+                rewards = np.array([reward], dtype=np.float64)
+                rewards.flags.writeable = False
+                if len(self._reward_arrays) < 256:
+                    self._reward_arrays[reward] = rewards
             terminated = _FLAGS[bool(term)]
             truncated = _FLAGS[bool(trunc)]
             finished = _NONE
