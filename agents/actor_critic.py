@@ -21,7 +21,7 @@ network (one extra output unit), otherwise they are two networks of the same sha
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Literal
 
 import numpy as np
@@ -33,9 +33,8 @@ from agents.common.distributions import (
     POLICY_OUT_GAIN,
     VALUE_OUT_GAIN,
     ActionSampler,
-    LogStdMode,
     PolicyHead,
-    Squash,
+    PolicyNetworkConfig,
     policy_supports,
 )
 from agents.common.networks import NumpyMLP, flat_dim, mlp
@@ -52,7 +51,7 @@ class ActorCritic(Agent):
         return policy_supports(action_space)
 
     @dataclass
-    class Config:
+    class Config(PolicyNetworkConfig):
         gamma: float = 0.99
         num_envs: int = 8
         vector_mode: Literal["sync", "async"] = "sync"
@@ -65,12 +64,6 @@ class ActorCritic(Agent):
         max_grad_norm: float | None = 0.5
         normalize_advantages: bool = False
         shared_torso: bool = False
-        hidden: list[int] = field(default_factory=lambda: [64, 64])
-        activation: Literal["tanh", "relu"] = "tanh"
-        init: Literal["orthogonal", "default"] = "orthogonal"
-        log_std: LogStdMode = "state_independent"
-        log_std_init: float = 0.0
-        squash: Squash = "clip"
 
         def __post_init__(self) -> None:
             require("gamma", self.gamma, 0.0 < self.gamma <= 1.0, "in (0, 1]")
@@ -81,10 +74,7 @@ class ActorCritic(Agent):
             require("adam_eps", self.adam_eps, self.adam_eps > 0, "> 0")
             require("value_coef", self.value_coef, self.value_coef >= 0, ">= 0")
             require("entropy_coef", self.entropy_coef, self.entropy_coef >= 0, ">= 0")
-            require("max_grad_norm", self.max_grad_norm,
-                    self.max_grad_norm is None or self.max_grad_norm > 0, "> 0 or null")
-            require("hidden", self.hidden, all(h >= 1 for h in self.hidden),
-                    "a list of layer widths >= 1")
+            self.check_network()
 
     def __init__(self, observation_space, action_space, config, seed):
         super().__init__(observation_space, action_space, config, seed)

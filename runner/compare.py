@@ -97,11 +97,7 @@ def _check_common(opts: argparse.Namespace) -> None:
 
 def parse_compare_options(argv: Sequence[str]) -> argparse.Namespace:
     opts = build_compare_parser().parse_args(list(argv))
-    _check_common(opts)
-    if not 0.0 < opts.confidence < 1.0:
-        raise ConfigError("--confidence", f"must be in (0, 1) (got {opts.confidence})")
-    if opts.random_episodes is not None and opts.random_episodes < 2:
-        raise ConfigError("--random-episodes", f"must be >= 2 (got {opts.random_episodes})")
+    report.check_statistics_options(opts)
     return opts
 
 

@@ -78,6 +78,12 @@ def build_parser() -> argparse.ArgumentParser:
 
 def parse_options(argv: Sequence[str]) -> argparse.Namespace:
     opts = build_parser().parse_args(list(argv))
+    check_statistics_options(opts)
+    return opts
+
+
+def check_statistics_options(opts: argparse.Namespace) -> None:
+    """Range checks of the options report and compare share (one line, exit 2 on error)."""
     if not 0.0 < opts.confidence < 1.0:
         raise ConfigError("--confidence", f"must be in (0, 1) (got {opts.confidence})")
     if opts.resamples < 100:
@@ -88,7 +94,6 @@ def parse_options(argv: Sequence[str]) -> argparse.Namespace:
         raise ConfigError("--last-k", f"must be >= 1 (got {opts.last_k})")
     if opts.random_episodes is not None and opts.random_episodes < 2:
         raise ConfigError("--random-episodes", f"must be >= 2 (got {opts.random_episodes})")
-    return opts
 
 
 # -- the computed report --------------------------------------------------------------------

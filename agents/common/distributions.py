@@ -17,12 +17,15 @@ Gaussian's log-prob is always that of the action the environment actually receiv
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass, field
 from typing import Literal
 
 import numpy as np
 import torch
 from gymnasium import spaces
 from torch import nn
+
+from agents.base import require
 
 LOG_STD_MIN, LOG_STD_MAX = -5.0, 2.0  # clamp of the log-std (common practice, no source)
 _HALF_LOG_2PI = 0.5 * math.log(2.0 * math.pi)
@@ -274,3 +277,23 @@ def policy_supports(action_space: spaces.Space) -> bool:
     if isinstance(action_space, spaces.Box):
         return len(action_space.shape) == 1
     return isinstance(action_space, spaces.Discrete)
+
+
+@dataclass
+class PolicyNetworkConfig:
+    """Network, policy-head and clipping settings shared by the policy-gradient agents'
+    Config dataclasses (which inherit these fields and call :meth:`check_network`)."""
+
+    max_grad_norm: float | None = None
+    hidden: list[int] = field(default_factory=lambda: [64, 64])
+    activation: Literal["tanh", "relu"] = "tanh"
+    init: Literal["orthogonal", "default"] = "orthogonal"
+    log_std: LogStdMode = "state_independent"
+    log_std_init: float = 0.0
+    squash: Squash = "clip"
+
+    def check_network(self) -> None:
+        require("max_grad_norm", self.max_grad_norm,
+                self.max_grad_norm is None or self.max_grad_norm > 0, "> 0 or null")
+        require("hidden", self.hidden, all(h >= 1 for h in self.hidden),
+                "a list of layer widths >= 1")
