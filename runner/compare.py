@@ -35,6 +35,7 @@ import numpy as np
 
 from agents.base import ConfigError
 from runner import power, report, scores, stats
+from runner.options import OneLineParser as _Parser
 from runner.scores import RANDOM_AGENT
 
 VERDICTS = ("better", "worse", "insufficient evidence")
@@ -46,17 +47,6 @@ VERDICT_RULE = (
     "An interval with an endpoint equal to 0.5 (or 0) includes it."
 )
 COMPARE_FILE = "compare.json"
-
-
-class _Parser(argparse.ArgumentParser):
-    """argparse that reports bad options as one ConfigError line instead of usage text."""
-
-    def __init__(self, field_name: str, **kwargs: Any) -> None:
-        super().__init__(**kwargs)
-        self.field_name = field_name
-
-    def error(self, message: str) -> None:  # type: ignore[override]
-        raise ConfigError(self.field_name, message)
 
 
 def _common(p: argparse.ArgumentParser) -> None:

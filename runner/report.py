@@ -30,6 +30,7 @@ import numpy as np
 
 from agents.base import ConfigError
 from runner import records, scores, stats
+from runner.options import OneLineParser
 from runner.scores import RANDOM_AGENT, Problem, Reference, Run
 
 ORACLE_PROTOCOL = (
@@ -40,15 +41,9 @@ ORACLE_PROTOCOL = (
 CURVE_POINTS_NOTE = "IQM of normalised scores over all runs of all envs at each evaluation"
 
 
-class _Parser(argparse.ArgumentParser):
-    """argparse that reports bad options as one ConfigError line instead of usage text."""
-
-    def error(self, message: str) -> None:  # type: ignore[override]
-        raise ConfigError("report", message)
-
-
 def build_parser() -> argparse.ArgumentParser:
-    p = _Parser(prog="seedsweep report", description="Aggregate a sweep into a report.")
+    p = OneLineParser("report", prog="seedsweep report",
+                      description="Aggregate a sweep into a report.")
     p.add_argument("sweep", help="the sweep folder, e.g. results/<sweep>")
     p.add_argument("--agents", help="comma-separated agents to compare (default: all but random)")
     p.add_argument("--envs", help="comma-separated envs (gymnasium ids or env config names)")

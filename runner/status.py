@@ -8,7 +8,6 @@ will resume from its checkpoint when the sweep is started again); pending = plan
 
 from __future__ import annotations
 
-import argparse
 from collections import Counter
 from collections.abc import Sequence
 from pathlib import Path
@@ -16,6 +15,7 @@ from pathlib import Path
 from filelock import Timeout
 
 from agents.base import ConfigError
+from runner.options import OneLineParser
 from runner.run import lock_for, read_run_json
 from runner.sweep import read_manifest
 
@@ -54,7 +54,7 @@ def _locked(run_dir: Path) -> bool:
 
 
 def status_main(argv: Sequence[str]) -> int:
-    ap = argparse.ArgumentParser(prog="seedsweep status",
+    ap = OneLineParser("status", prog="seedsweep status",
                                  description="done / running / failed / pending runs of a sweep")
     ap.add_argument("folder", help="a sweep folder, e.g. results/demo")
     args = ap.parse_args(list(argv))
