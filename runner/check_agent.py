@@ -25,7 +25,7 @@ import time
 import traceback
 import tracemalloc
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -59,7 +59,7 @@ STANDARD_SPACES: tuple[spaces.Space, ...] = (
 PROBE_OBS_SPACE = spaces.Box(-1.0, 1.0, (4,), np.float32)
 
 USAGE = f"""usage: seedsweep check-agent TARGET [env=NAME ...] [agent.KEY=VALUE ...]
-                             [seed=N] [steps=N]
+                             [seed=N] [steps=N] [--config-dir DIR]
 
 Check that an agent keeps the contract of agents/base.py, on real training envs.
 
@@ -70,6 +70,7 @@ env=NAME   env configs to check on (repeat or comma-separate; default:
 agent.KEY=VALUE  a hyperparameter override (hydra value grammar)
 seed=N     agent seed (default 0; the different-seed instance uses N+1)
 steps=N    act/observe calls per loop (default {DEFAULT_STEPS}; at least {MIN_STEPS})
+--config-dir DIR  extra config folder (agent/, env/ inside), as for seedsweep run
 
 checks, one line each per env: spaces, actions, determinism, round_trip, global_rng,
 learn_loop; once per agent: contract_version, config, declares, refuses.
@@ -856,11 +857,19 @@ class Options:
     agent: dict[str, Any]
     seed: int = 0
     steps: int = DEFAULT_STEPS
+    config_dirs: list[str] = field(default_factory=list)
 
 
 def parse_args(argv: Sequence[str]) -> Options:
     from runner.config import parse_overrides
 
+    argv, config_dirs = list(argv), []
+    while "--config-dir" in argv:
+        i = argv.index("--config-dir")
+        if i + 1 >= len(argv):
+            raise ConfigError("--config-dir", "expected a folder after --config-dir")
+        config_dirs.append(argv[i + 1])
+        del argv[i:i + 2]
     options = [a for a in argv if a.startswith("-")]
     if options:
         raise ConfigError("options", f"unknown option {options[0]!r} (see seedsweep "
@@ -870,7 +879,7 @@ def parse_args(argv: Sequence[str]) -> Options:
         raise ConfigError("target", ("missing" if not targets else
                                      f"one target expected, got {len(targets)}")
                           + ": an agent config name, module:Class or path/to/file.py:Class")
-    opts = Options(targets[0], [], {})
+    opts = Options(targets[0], [], {}, config_dirs=config_dirs)
     for o in parse_overrides([a for a in argv if "=" in a]):
         key = o.get_key_element().lstrip("+")
         if key == "env":
@@ -896,7 +905,8 @@ def parse_args(argv: Sequence[str]) -> Options:
     return opts
 
 
-def resolve_target(target: str) -> tuple[type[Agent], dict[str, Any], str]:
+def resolve_target(target: str, config_dirs: Sequence[str] = ()
+                   ) -> tuple[type[Agent], dict[str, Any], str]:
     """The agent class, its hyperparameters from YAML (if a config name) and a label."""
     from runner.config import compose, group_options
     from runner.run import load_agent_class
@@ -904,11 +914,11 @@ def resolve_target(target: str) -> tuple[type[Agent], dict[str, Any], str]:
     values: dict[str, Any] = {}
     entry = target
     if ":" not in target:
-        allowed = group_options("agent")
+        allowed = group_options("agent", config_dirs)
         if target not in allowed:
             raise ConfigError("target", f"unknown agent config {target!r} (allowed: "
                               f"{', '.join(allowed)}; or module:Class, or path/to/file.py:Class)")
-        values = dict(compose([f"agent={target}"])["agent"])
+        values = dict(compose([f"agent={target}"], [Path(d) for d in config_dirs])["agent"])
         values.pop("name", None)
         entry = values.pop("entry", None)
     try:
@@ -918,14 +928,16 @@ def resolve_target(target: str) -> tuple[type[Agent], dict[str, Any], str]:
     return cls, values, (f"{target} ({entry})" if entry != target else target)
 
 
-def env_specs(names: Sequence[str]) -> list[tuple[str, EnvSpec]]:
+def env_specs(names: Sequence[str], config_dirs: Sequence[str] = ()
+              ) -> list[tuple[str, EnvSpec]]:
     from runner.config import compose, group_options
 
-    allowed = group_options("env")
+    dirs = [Path(d) for d in config_dirs]
+    allowed = group_options("env", dirs)
     for name in names:
         if name not in allowed:
             raise ConfigError("env", f"unknown option {name!r} (allowed: {', '.join(allowed)})")
-    return [(name, parse_env_config(compose([f"env={name}"])["env"])) for name in names]
+    return [(name, parse_env_config(compose([f"env={name}"], dirs)["env"])) for name in names]
 
 
 def check_agent_main(argv: Sequence[str]) -> int:
@@ -934,14 +946,14 @@ def check_agent_main(argv: Sequence[str]) -> int:
         print(USAGE)
         return 0
     opts = parse_args(argv)
-    cls, values, label = resolve_target(opts.target)
+    cls, values, label = resolve_target(opts.target, opts.config_dirs)
     if not dataclasses.is_dataclass(getattr(cls, "Config", None)):
         print(f"seedsweep check-agent: {label}")
         print(Result("agent", "config", "FAIL", "Config is not a dataclass (see agents/base.py)")
               .line())
         return 1
     config = build_config(cls, {**values, **opts.agent})
-    specs = env_specs(opts.envs)
+    specs = env_specs(opts.envs, opts.config_dirs)
     torch.set_num_threads(1)
     subject = Subject(cls, config, opts.seed)
     print(f"seedsweep check-agent: {label}, seed {opts.seed}, {opts.steps} steps per loop, "

@@ -205,3 +205,14 @@ def test_help(capsys):
     out = capsys.readouterr().out
     for word in ("check-agent TARGET", "env=NAME", "agent.KEY=VALUE", "module:Class"):
         assert word in out
+
+
+def test_agent_yaml_from_an_extra_config_dir(capsys):
+    from pathlib import Path
+
+    from runner.check_agent import check_agent_main
+
+    examples = Path(__file__).resolve().parent.parent / "examples" / "configs"
+    assert check_agent_main(["tile_sarsa", "--config-dir", str(examples), "env=cartpole",
+                             "steps=60"]) == 0
+    assert "result: OK" in capsys.readouterr().out
