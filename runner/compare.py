@@ -76,15 +76,6 @@ def build_compare_parser() -> argparse.ArgumentParser:
     return p
 
 
-def _check_common(opts: argparse.Namespace) -> None:
-    if opts.resamples < 100:
-        raise ConfigError("--resamples", f"must be >= 100 (got {opts.resamples})")
-    if opts.seed < 0:
-        raise ConfigError("--seed", f"must be >= 0 (got {opts.seed})")
-    if opts.last_k < 1:
-        raise ConfigError("--last-k", f"must be >= 1 (got {opts.last_k})")
-
-
 def parse_compare_options(argv: Sequence[str]) -> argparse.Namespace:
     opts = build_compare_parser().parse_args(list(argv))
     report.check_statistics_options(opts)
@@ -532,7 +523,7 @@ def build_plan_parser() -> argparse.ArgumentParser:
 
 def parse_plan_options(argv: Sequence[str]) -> argparse.Namespace:
     opts = build_plan_parser().parse_args(list(argv))
-    _check_common(opts)
+    report.check_resampling_options(opts)
     if not 0.0 < opts.power < 1.0:
         raise ConfigError("--power", f"must be in (0, 1) (got {opts.power})")
     if not 0.0 < opts.alpha < 1.0:

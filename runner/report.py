@@ -81,14 +81,19 @@ def check_statistics_options(opts: argparse.Namespace) -> None:
     """Range checks of the options report and compare share (one line, exit 2 on error)."""
     if not 0.0 < opts.confidence < 1.0:
         raise ConfigError("--confidence", f"must be in (0, 1) (got {opts.confidence})")
+    check_resampling_options(opts)
+    if opts.random_episodes is not None and opts.random_episodes < 2:
+        raise ConfigError("--random-episodes", f"must be >= 2 (got {opts.random_episodes})")
+
+
+def check_resampling_options(opts: argparse.Namespace) -> None:
+    """Range checks of --resamples, --seed and --last-k (report, compare, plan-seeds)."""
     if opts.resamples < 100:
         raise ConfigError("--resamples", f"must be >= 100 (got {opts.resamples})")
     if opts.seed < 0:
         raise ConfigError("--seed", f"must be >= 0 (got {opts.seed})")
     if opts.last_k < 1:
         raise ConfigError("--last-k", f"must be >= 1 (got {opts.last_k})")
-    if opts.random_episodes is not None and opts.random_episodes < 2:
-        raise ConfigError("--random-episodes", f"must be >= 2 (got {opts.random_episodes})")
 
 
 # -- the computed report --------------------------------------------------------------------
