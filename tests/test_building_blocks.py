@@ -59,7 +59,8 @@ def test_replay_rejects_capacity_mismatch():
 def test_linear_schedule_endpoints_and_midpoint():
     s = LinearSchedule(1.0, 0.1, 100)
     assert s(0) == 1.0
-    assert s(50) == pytest.approx(0.55)  # halfway between 1.0 and 0.1
+    # linear interpolation, 1.0 + (0.1 - 1.0) * 50/100 (common practice, no source)
+    assert s(50) == pytest.approx(0.55)
     assert s(100) == 0.1 and s(10_000) == 0.1
     assert LinearSchedule(1.0, 0.1, 0)(0) == 0.1
 
