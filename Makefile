@@ -19,7 +19,7 @@ $(STAMP): $(BIN)/python pyproject.toml constraints.txt
 install: $(STAMP)
 
 demo: $(STAMP)
-	$(BIN)/python -m runner.demo
+	$(BIN)/python -m seedsweep.runner.commands.demo
 
 test: $(STAMP)
 	$(BIN)/python -m pytest

@@ -1,5 +1,5 @@
-"""Agents: one file per algorithm behind the contract in :mod:`agents.base`."""
+"""Agents: one file per algorithm behind the contract in :mod:`seedsweep.agents.base`."""
 
-from agents.base import Agent, ConfigError, Step
+from seedsweep.agents.base import Agent, ConfigError, Step
 
 __all__ = ["Agent", "ConfigError", "Step"]

@@ -15,7 +15,7 @@ How the advantage is chosen — by ``gae_lambda`` alone:
   gives the same numbers as the n-step path.
 
 Truncation bootstraps from ``V`` of the episode's final observation; termination does not
-(see :mod:`agents.common.returns`). ``shared_torso`` puts the policy and value outputs on one
+(see :mod:`seedsweep.agents.common.returns`). ``shared_torso`` puts the policy and value outputs on one
 network (one extra output unit), otherwise they are two networks of the same shape.
 """
 
@@ -28,8 +28,8 @@ import numpy as np
 import torch
 from gymnasium import spaces
 
-from agents.base import Agent, Step, require
-from agents.common.distributions import (
+from seedsweep.agents.base import Agent, Step, require
+from seedsweep.agents.common.distributions import (
     POLICY_OUT_GAIN,
     VALUE_OUT_GAIN,
     ActionSampler,
@@ -37,10 +37,10 @@ from agents.common.distributions import (
     PolicyNetworkConfig,
     policy_supports,
 )
-from agents.common.networks import NumpyMLP, flat_dim, mlp
-from agents.common.optim import adam, clip_grad_norm
-from agents.common.returns import gae, nstep_returns
-from agents.common.rng import generator_states, load_generator_states, make_generators
+from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp
+from seedsweep.agents.common.optim import adam, clip_grad_norm
+from seedsweep.agents.common.returns import gae, nstep_returns
+from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
 
 
 class ActorCritic(Agent):

@@ -13,7 +13,7 @@ Minimal example (a complete, working agent)::
     from dataclasses import dataclass
     import numpy as np
     from gymnasium import spaces
-    from agents.base import Agent, Step
+    from seedsweep.agents.base import Agent, Step
 
     class Uniform(Agent):
         action_spaces = (spaces.Discrete,)

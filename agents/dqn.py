@@ -15,12 +15,12 @@ import numpy as np
 import torch
 from gymnasium import spaces
 
-from agents.base import Agent, Step, require
-from agents.common.networks import NumpyMLP, flat_dim, mlp
-from agents.common.optim import FlatParameters
-from agents.common.replay import ReplayBuffer
-from agents.common.rng import generator_states, load_generator_states, make_generators
-from agents.common.schedules import LinearSchedule
+from seedsweep.agents.base import Agent, Step, require
+from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp
+from seedsweep.agents.common.optim import FlatParameters
+from seedsweep.agents.common.replay import ReplayBuffer
+from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
+from seedsweep.agents.common.schedules import LinearSchedule
 
 
 class DQN(Agent):

@@ -27,8 +27,8 @@ import numpy as np
 import torch
 from gymnasium import spaces
 
-from agents.base import Agent, Step, require
-from agents.common.distributions import (
+from seedsweep.agents.base import Agent, Step, require
+from seedsweep.agents.common.distributions import (
     POLICY_OUT_GAIN,
     VALUE_OUT_GAIN,
     ActionSampler,
@@ -36,10 +36,10 @@ from agents.common.distributions import (
     PolicyNetworkConfig,
     policy_supports,
 )
-from agents.common.networks import NumpyMLP, flat_dim, mlp
-from agents.common.optim import adam, clip_grad_norm
-from agents.common.returns import discounted_returns
-from agents.common.rng import generator_states, load_generator_states, make_generators
+from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp
+from seedsweep.agents.common.optim import adam, clip_grad_norm
+from seedsweep.agents.common.returns import discounted_returns
+from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
 
 
 class Reinforce(Agent):

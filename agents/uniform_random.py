@@ -9,7 +9,7 @@ import numpy as np
 import torch
 from gymnasium import spaces
 
-from agents.base import Agent, Step
+from seedsweep.agents.base import Agent, Step
 
 
 class UniformRandom(Agent):

@@ -53,7 +53,7 @@ def run_one(job: dict) -> dict:
     torch.set_num_threads(1)
     t0 = time.perf_counter()
     try:
-        from runner.api import run
+        from seedsweep.runner.launch.api import run
     except ImportError:
         run = None
     if run is not None:
@@ -66,7 +66,7 @@ def run_one(job: dict) -> dict:
         doc = json.loads((run_dir / "run.json").read_text())
         curve = _eval_curve(run_dir / "eval.csv")
         final = doc["final_score"]
-        how = "runner.api.run"
+        how = "seedsweep.runner.launch.api.run"
     else:
         final, curve = minimal_loop(job)
         how = "minimal loop"
@@ -88,10 +88,10 @@ def minimal_loop(job: dict) -> tuple[float, list[tuple[int, float]]]:
 
     import yaml
 
-    from agents.base import Step, build_config
-    from envs.build import make_eval_env, make_train_envs, parse_env_config
-    from runner.protocol import evaluate
-    from runner.seeding import derive_seeds
+    from seedsweep.agents.base import Step, build_config
+    from seedsweep.envs.build import make_eval_env, make_train_envs, parse_env_config
+    from seedsweep.runner.execution.protocol import evaluate
+    from seedsweep.runner.execution.seeding import derive_seeds
 
     if job["set"]:
         raise SystemExit("--set needs runner.api (the minimal loop takes the YAML as is)")

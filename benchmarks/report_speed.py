@@ -82,7 +82,7 @@ def main() -> None:
     t0 = time.perf_counter()
     sweep = write_sweep(root, args.seeds)
     print(f"wrote {len(AGENTS) * len(ENVS) * args.seeds} runs in {time.perf_counter() - t0:.1f} s")
-    from runner import report
+    from seedsweep.runner.analysis import report
 
     opts = report.parse_options([str(sweep), "--quiet"])
     t0 = time.perf_counter()

@@ -25,7 +25,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import yardstick_dqn  # noqa: E402
 
-from runner.api import run  # noqa: E402
+from seedsweep.runner.launch.api import run  # noqa: E402
 
 
 def runner_steps_per_s(overrides: list[str], steps: int) -> float:

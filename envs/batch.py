@@ -22,7 +22,7 @@ import numpy as np
 import torch
 from gymnasium.vector import AsyncVectorEnv, AutoresetMode, SyncVectorEnv
 
-from envs.normalize import ObsNormalizer
+from seedsweep.envs.normalize import ObsNormalizer
 
 RewardTransform = tuple[str, dict[str, Any]]
 

@@ -9,10 +9,10 @@ from typing import Any
 
 import gymnasium as gym
 
-from agents.base import ConfigError, check_type
-from envs.batch import TrainEnvs
-from envs.normalize import ObsNormalizer
-from envs.wrappers import WRAPPERS, parse_wrappers
+from seedsweep.agents.base import ConfigError, check_type
+from seedsweep.envs.batch import TrainEnvs
+from seedsweep.envs.normalize import ObsNormalizer
+from seedsweep.envs.wrappers import WRAPPERS, parse_wrappers
 
 ENV_KEYS = {"name", "id", "kwargs", "max_episode_steps", "reference", "wrappers"}
 

@@ -19,7 +19,7 @@ from typing import Any
 import gymnasium as gym
 from gymnasium import wrappers as gw
 
-from agents.base import ConfigError, check_type
+from seedsweep.agents.base import ConfigError, check_type
 
 
 @dataclass(frozen=True)

@@ -6,7 +6,7 @@ import os
 import signal
 from dataclasses import dataclass
 
-from agents.uniform_random import UniformRandom
+from seedsweep.agents.uniform_random import UniformRandom
 
 
 class _Failing(UniformRandom):

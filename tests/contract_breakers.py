@@ -13,7 +13,7 @@ import numpy as np
 import torch
 from gymnasium import spaces
 
-from agents.base import Agent, Step
+from seedsweep.agents.base import Agent, Step
 
 LEAK_FLOATS = 1250  # float64s kept per step: 10 kB, i.e. 1 MB per 100 steps
 

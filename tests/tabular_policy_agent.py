@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 from gymnasium import spaces
 
-from agents.base import Agent, Step
+from seedsweep.agents.base import Agent, Step
 
 
 class TabularPolicy(Agent):

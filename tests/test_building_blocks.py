@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 import torch
 
-from agents.common.networks import NumpyMLP, mlp
-from agents.common.optim import FlatParameters
-from agents.common.replay import ReplayBuffer
-from agents.common.schedules import LinearSchedule
+from seedsweep.agents.common.networks import NumpyMLP, mlp
+from seedsweep.agents.common.optim import FlatParameters
+from seedsweep.agents.common.replay import ReplayBuffer
+from seedsweep.agents.common.schedules import LinearSchedule
 
 
 def test_replay_ring_overwrites_oldest_first():
@@ -131,7 +131,7 @@ def test_dqn_update_gradient_is_the_huber_loss_gradient():
     """The hand-written update equals autograd on torch's smooth_l1_loss (beta 1, mean)."""
     from gymnasium import spaces
 
-    from agents.dqn import DQN
+    from seedsweep.agents.dqn import DQN
 
     agent = DQN(spaces.Box(-1, 1, (4,), np.float32), spaces.Discrete(2),
                 DQN.Config(double=False, max_grad_norm=None, batch_size=16), seed=0)

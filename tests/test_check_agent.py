@@ -17,9 +17,9 @@ import pytest
 import torch
 from gymnasium import spaces
 
-from agents.base import ConfigError
-from runner import cli
-from runner.check_agent import action_problem, check_agent_main, first_difference
+from seedsweep.agents.base import ConfigError
+from seedsweep.runner.commands import cli
+from seedsweep.runner.agent_check.check_agent import action_problem, check_agent_main, first_difference
 
 BREAKERS = "tests.contract_breakers:"
 PER_ENV = ("spaces", "actions", "determinism", "round_trip", "global_rng", "learn_loop")
@@ -185,7 +185,7 @@ BAD_INPUT = [
 @pytest.mark.parametrize("argv,message", BAD_INPUT)
 def test_bad_input_is_one_line_and_exit_2(argv, message, monkeypatch, capsys):
     monkeypatch.setitem(cli.COMMANDS, "check-agent",
-                        ("runner.check_agent", "check_agent_main", "check an agent"))
+                        ("seedsweep.runner.agent_check.check_agent", "check_agent_main", "check an agent"))
     code = cli.main(["check-agent", *argv])
     captured = capsys.readouterr()
     assert code == 2
@@ -210,7 +210,7 @@ def test_help(capsys):
 def test_agent_yaml_from_an_extra_config_dir(capsys):
     from pathlib import Path
 
-    from runner.check_agent import check_agent_main
+    from seedsweep.runner.agent_check.check_agent import check_agent_main
 
     examples = Path(__file__).resolve().parent.parent / "examples" / "configs"
     assert check_agent_main(["tile_sarsa", "--config-dir", str(examples), "env=cartpole",

@@ -2,7 +2,7 @@
 
 import pytest
 
-from runner.cli import main
+from seedsweep.runner.commands.cli import main
 
 CASES = [
     (["agent=nosuch"], "agent: unknown option 'nosuch' (allowed: "),

@@ -13,10 +13,10 @@ import pytest
 import yaml
 from scipy import stats as sps
 
-from runner import compare
-from runner.compare import compare_main, compare_pair, fmt_interval, iqm_difference, verdict
-from runner.report import report_main
-from runner.stats import Interval
+from seedsweep.runner.analysis import compare
+from seedsweep.runner.analysis.compare import compare_main, compare_pair, fmt_interval, iqm_difference, verdict
+from seedsweep.runner.analysis.report import report_main
+from seedsweep.runner.analysis.stats import Interval
 
 ENVS = {
     "cartpole": {"name": "cartpole", "id": "CartPole-v1", "kwargs": {},
@@ -34,7 +34,7 @@ def write_run(sweep: Path, agent: str, env: str, seed: int, returns: list[float]
     """A run folder in the RECORDS.md format with one evaluation (at env step 100) whose
     episode returns are ``returns``, so the run's final score is their mean."""
     env_cfg = ENVS[env]
-    cfg = {"agent": {"name": agent, "entry": "agents.none:None", "gamma": 0.99,
+    cfg = {"agent": {"name": agent, "entry": "seedsweep.agents.none:None", "gamma": 0.99,
                      **(agent_extra or {})},
            "env": env_cfg, "seed": seed, "steps": 100,
            "eval": {"every": 100, "episodes": len(returns), "deterministic": True},

@@ -15,7 +15,7 @@ from torch.distributions import (
     TransformedDistribution,
 )
 
-from agents.common.distributions import (
+from seedsweep.agents.common.distributions import (
     LOG_STD_MAX,
     ActionSampler,
     Categorical,

@@ -4,8 +4,8 @@ import gymnasium as gym
 import numpy as np
 import pytest
 
-from agents.base import ConfigError
-from envs.build import make_eval_env, make_train_envs, parse_env_config
+from seedsweep.agents.base import ConfigError
+from seedsweep.envs.build import make_eval_env, make_train_envs, parse_env_config
 
 
 def spec(**kw):

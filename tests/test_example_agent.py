@@ -20,10 +20,10 @@ import pytest
 import torch
 from gymnasium import spaces
 
-from agents.base import ConfigError, Step, build_config
-from runner import api
-from runner.config import compose
-from runner.run import load_agent_class, prepare
+from seedsweep.agents.base import ConfigError, Step, build_config
+from seedsweep.runner.launch import api
+from seedsweep.runner.execution.config import compose
+from seedsweep.runner.execution.run import load_agent_class, prepare
 
 ROOT = Path(__file__).resolve().parent.parent
 AGENT_FILE = ROOT / "examples" / "tile_sarsa" / "agent.py"

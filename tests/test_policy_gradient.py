@@ -13,9 +13,9 @@ import yaml
 from gymnasium import spaces
 from gymnasium.vector import AutoresetMode, SyncVectorEnv
 
-from agents.actor_critic import ActorCritic
-from agents.base import ConfigError, Step, build_config
-from agents.reinforce import Reinforce
+from seedsweep.agents.actor_critic import ActorCritic
+from seedsweep.agents.base import ConfigError, Step, build_config
+from seedsweep.agents.reinforce import Reinforce
 
 torch.set_num_threads(1)
 CONFIGS = Path(__file__).resolve().parent.parent / "configs" / "agent"
@@ -219,7 +219,7 @@ def test_bad_config_names_the_field_and_the_allowed_values(cls, field, value, al
 def test_shipped_yaml_sets_every_hyperparameter_and_builds(name, cls):
     raw = yaml.safe_load((CONFIGS / f"{name}.yaml").read_text())
     assert raw.pop("name") == name
-    assert raw.pop("entry") == f"agents.{name}:{cls.__name__}"
+    assert raw.pop("entry") == f"seedsweep.agents.{name}:{cls.__name__}"
     import dataclasses
 
     assert set(raw) == {f.name for f in dataclasses.fields(cls.Config)}

@@ -9,10 +9,10 @@ import gymnasium as gym
 import pytest
 import torch
 
-from agents.actor_critic import ActorCritic
-from agents.base import ConfigError, build_config
-from agents.reinforce import Reinforce
-from runner.api import run
+from seedsweep.agents.actor_critic import ActorCritic
+from seedsweep.agents.base import ConfigError, build_config
+from seedsweep.agents.reinforce import Reinforce
+from seedsweep.runner.launch.api import run
 
 STEPS, EVERY, EPISODES = 2000, 1000, 2  # multiples of num_envs (1 and 8): evals at 1000, 2000
 CLASSES = {"reinforce": Reinforce, "actor_critic": ActorCritic}

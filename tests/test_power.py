@@ -11,8 +11,8 @@ import numpy as np
 import pytest
 from scipy import stats as sps
 
-from runner.compare import plan_seeds_main
-from runner.power import bootstrap_power, seeds_needed, shift_to_difference
+from seedsweep.runner.analysis.compare import plan_seeds_main
+from seedsweep.runner.analysis.power import bootstrap_power, seeds_needed, shift_to_difference
 from tests.test_compare import make_sweep, snapshot, write_run
 
 

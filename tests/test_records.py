@@ -4,7 +4,7 @@ import os
 
 import pytest
 
-from runner import records
+from seedsweep.runner.execution import records
 
 
 def test_atomic_write_replaces_whole_file_and_leaves_no_temp(tmp_path):

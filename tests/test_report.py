@@ -13,8 +13,8 @@ import pytest
 import yaml
 from scipy import stats as sps
 
-from runner import oracle
-from runner.report import build_parser, compute_report, report_main
+from seedsweep.runner.analysis import oracle
+from seedsweep.runner.analysis.report import build_parser, compute_report, report_main
 
 ENVS = {
     "frozenlake": {"name": "frozenlake", "id": "FrozenLake-v1",
@@ -35,7 +35,7 @@ def write_run(sweep: Path, agent: str, env: str, seed: int, level: float, *,
     """One run folder in the RECORDS.md format with invented returns around ``level``."""
     rng = np.random.default_rng([seed, len(agent), len(env)])
     env_cfg = env_cfg or ENVS[env]
-    cfg = {"agent": {"name": agent, "entry": "agents.none:None", "gamma": 0.99},
+    cfg = {"agent": {"name": agent, "entry": "seedsweep.agents.none:None", "gamma": 0.99},
            "env": env_cfg, "seed": seed, "steps": steps,
            "eval": {"every": every, "episodes": episodes, "deterministic": True},
            "sweep": sweep.name, "results_dir": str(sweep.parent), "torch_threads": 1,
@@ -319,7 +319,7 @@ def test_env_without_reference_is_refused_then_user_reference_is_used(tmp_path, 
 
 def test_random_score_is_measured_once_into_the_cache(tmp_path, capsys):
     """No random runs in the sweep: the random agent is run through runner.api."""
-    from runner import api
+    from seedsweep.runner.launch import api
 
     sweep = make_sweep(tmp_path, envs=("frozenlake",), random=False)
     calls = []

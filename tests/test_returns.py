@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from agents.common.returns import discounted_returns, gae, nstep_returns, td_errors
+from seedsweep.agents.common.returns import discounted_returns, gae, nstep_returns, td_errors
 
 
 def random_rollout(seed: int, T: int = 40, N: int = 3):

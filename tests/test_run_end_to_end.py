@@ -8,8 +8,8 @@ import pytest
 import torch
 import yaml
 
-from runner.api import run
-from runner.cli import main
+from seedsweep.runner.launch.api import run
+from seedsweep.runner.commands.cli import main
 
 SHORT = ["agent=dqn", "env=cartpole", "steps=1500", "eval.every=500", "eval.episodes=3",
          "agent.learning_starts=200", "log.every=250", "--progress=quiet"]

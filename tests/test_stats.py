@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy import stats as sps
 
-from runner import stats
+from seedsweep.runner.analysis import stats
 
 
 def _bootstrap_scipy(samples, statistic, resamples, seed):

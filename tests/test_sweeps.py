@@ -10,15 +10,15 @@ from pathlib import Path
 
 import pytest
 
-from runner.cli import main
-from runner.sweep import plan
+from seedsweep.runner.commands.cli import main
+from seedsweep.runner.launch.sweep import plan
 
 ROOT = Path(__file__).resolve().parent.parent
 FAST = ["steps=600", "eval.every=300", "eval.episodes=2", "--no-estimate", "--progress=lines"]
 
 
 def run_cli(*args: str, cwd: Path = ROOT) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "runner.cli", *args], cwd=cwd,
+    return subprocess.run([sys.executable, "-m", "seedsweep.runner.commands.cli", *args], cwd=cwd,
                           capture_output=True, text=True, timeout=600)
 
 
@@ -73,7 +73,7 @@ def test_failures_are_isolated_and_retry_failed_reruns_only_them(tmp_path, capsy
 
 def _kill_after(args, folder: Path, checkpoints: int, sig=signal.SIGKILL) -> int:
     """Start a real run process and kill it once it has written `checkpoints` checkpoints."""
-    proc = subprocess.Popen([sys.executable, "-m", "runner.cli", *args], cwd=ROOT,
+    proc = subprocess.Popen([sys.executable, "-m", "seedsweep.runner.commands.cli", *args], cwd=ROOT,
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     deadline = time.monotonic() + 240
     seen = set()
@@ -141,8 +141,8 @@ def test_corrupt_checkpoint_falls_back_to_the_previous_one(tmp_path):
 
 
 def test_lock_keeps_a_run_single_and_a_dead_holder_releases_it(tmp_path):
-    from runner.config import compose
-    from runner.run import RunBusy, execute, prepare
+    from seedsweep.runner.execution.config import compose
+    from seedsweep.runner.execution.run import RunBusy, execute, prepare
 
     p = prepare(compose(["agent=random", "steps=200", "eval.every=100", "eval.episodes=1",
                          f"results_dir={tmp_path}"]))

@@ -25,7 +25,7 @@ import torch
 from gymnasium import spaces
 from torch import nn
 
-from agents.base import require
+from seedsweep.agents.base import require
 
 LOG_STD_MIN, LOG_STD_MAX = -5.0, 2.0  # clamp of the log-std (common practice, no source)
 _HALF_LOG_2PI = 0.5 * math.log(2.0 * math.pi)

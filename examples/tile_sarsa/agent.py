@@ -25,8 +25,8 @@ import numpy as np
 import torch
 from gymnasium import spaces
 
-from agents.base import Agent, Step, require
-from agents.common.schedules import LinearSchedule
+from seedsweep.agents.base import Agent, Step, require
+from seedsweep.agents.common.schedules import LinearSchedule
 
 
 class TileCoder:

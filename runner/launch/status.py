@@ -14,10 +14,10 @@ from pathlib import Path
 
 from filelock import Timeout
 
-from agents.base import ConfigError
-from runner.options import OneLineParser
-from runner.run import lock_for, read_run_json
-from runner.sweep import read_manifest
+from seedsweep.agents.base import ConfigError
+from seedsweep.runner.commands.options import OneLineParser
+from seedsweep.runner.execution.run import lock_for, read_run_json
+from seedsweep.runner.launch.sweep import read_manifest
 
 
 def run_states(folder: Path) -> list[dict]:

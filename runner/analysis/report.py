@@ -28,10 +28,12 @@ from typing import Any
 
 import numpy as np
 
-from agents.base import ConfigError
-from runner import records, scores, stats
-from runner.options import OneLineParser
-from runner.scores import RANDOM_AGENT, Problem, Reference, Run
+from seedsweep.agents.base import ConfigError
+from seedsweep.runner.execution import records
+from seedsweep.runner.analysis import scores
+from seedsweep.runner.analysis import stats
+from seedsweep.runner.commands.options import OneLineParser
+from seedsweep.runner.analysis.scores import RANDOM_AGENT, Problem, Reference, Run
 
 ORACLE_PROTOCOL = (
     "Oracle references are the exact optimal expected undiscounted return from the start "
@@ -534,7 +536,7 @@ def summary_dict(data: ReportData) -> dict[str, Any]:
 
 
 def scores_csv(data: ReportData) -> str:
-    from runner.records import csv_text
+    from seedsweep.runner.execution.records import csv_text
 
     rows = [(data.sweep.name, r.run_id, r.label, r.env_key, r.seed, *data.run_scores[r.run_id])
             for r in data.runs]
@@ -543,7 +545,7 @@ def scores_csv(data: ReportData) -> str:
 
 
 def curves_csv(data: ReportData) -> str:
-    from runner.records import csv_text
+    from seedsweep.runner.execution.records import csv_text
 
     rows = []
     for r in data.runs:
@@ -559,8 +561,8 @@ def write_report(data: ReportData, with_figures: bool = True, comparison: Any = 
     """Build the report in a temporary folder beside the final one, then rename it in.
     ``comparison`` (:class:`runner.compare.ReportComparison`) adds compare.json and the
     page's Comparison section."""
-    from runner import html_report
-    from runner.records import atomic_write_bytes, atomic_write_text, fsync_dir
+    from seedsweep.runner.present import html as html_report
+    from seedsweep.runner.execution.records import atomic_write_bytes, atomic_write_text, fsync_dir
 
     sweep_dir = data.sweep.path
     target = sweep_dir / "report"
@@ -569,7 +571,7 @@ def write_report(data: ReportData, with_figures: bool = True, comparison: Any = 
     try:
         figures: dict[str, tuple[bytes, bytes]] = {}
         if with_figures:
-            from runner import figures as figs
+            from seedsweep.runner.present import figures as figs
 
             t0 = time.perf_counter()
             figures = figs.all_figures(data)
@@ -648,7 +650,7 @@ def _fmt_iv(iv: stats.Interval) -> str:
 def report_main(argv: list[str]) -> int:
     """``seedsweep report results/<sweep> [options]``; returns the exit status."""
     try:
-        from runner import compare
+        from seedsweep.runner.analysis import compare
 
         opts = parse_options(argv)
         data = compute_report(opts)

@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 import torch
 
-from runner.records import atomic_write_bytes, atomic_write_text
+from seedsweep.runner.execution.records import atomic_write_bytes, atomic_write_text
 
 FOLDER = "checkpoints"
 KEEP = 2

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import gymnasium as gym
 import numpy as np
 
-from agents.base import Agent
+from seedsweep.agents.base import Agent
 
 
 @dataclass(frozen=True)

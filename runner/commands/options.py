@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
-from agents.base import ConfigError
+from seedsweep.agents.base import ConfigError
 
 
 class OneLineParser(argparse.ArgumentParser):

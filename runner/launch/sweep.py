@@ -16,10 +16,10 @@ from typing import Any
 
 from filelock import FileLock
 
-from agents.base import ConfigError
-from runner import records
-from runner.config import compose, expand
-from runner.run import PreparedRun, read_run_json
+from seedsweep.agents.base import ConfigError
+from seedsweep.runner.execution import records
+from seedsweep.runner.execution.config import compose, expand
+from seedsweep.runner.execution.run import PreparedRun, read_run_json
 
 MANIFEST = "sweep.json"
 
@@ -39,8 +39,8 @@ class SweepOptions:
 def plan(overrides: Sequence[str], multirun: bool = False,
          extra_dirs: Sequence[Path] = ()) -> list[PreparedRun]:
     """Expand and check every run of a sweep; raises ConfigError before anything is written."""
-    from runner.config import apply_suite
-    from runner.run import prepare
+    from seedsweep.runner.execution.config import apply_suite
+    from seedsweep.runner.execution.run import prepare
 
     combos = [c for group in apply_suite(overrides, extra_dirs) for c in expand(group, multirun)]
     if not combos:
@@ -133,7 +133,7 @@ def classify(planned: list[PreparedRun], retry_failed: bool) -> tuple[list, list
 
 def run_sweep(planned: list[PreparedRun], overrides: Sequence[str], opts: SweepOptions) -> int:
     """Run what is left of a sweep; exit status 0 if every run is complete, else 1."""
-    from runner.workers import default_workers, run_local
+    from seedsweep.runner.launch.workers import default_workers, run_local
 
     folder = sweep_dir(planned)
     check_code_version(folder, opts.allow_mixed_code)
@@ -143,14 +143,14 @@ def run_sweep(planned: list[PreparedRun], overrides: Sequence[str], opts: SweepO
     say(f"seedsweep: sweep {folder.name}: {len(planned)} runs — {len(complete)} complete, "
         f"{len(failed)} failed (kept; --retry-failed reruns them), {len(to_run)} to run")
     if to_run and opts.estimate:
-        from runner.estimate import estimate_wall_time
+        from seedsweep.runner.launch.estimate import estimate_wall_time
 
         say(estimate_wall_time(to_run, workers if opts.launcher == "local" else len(to_run)))
     write_manifest(folder, planned, overrides)
     if opts.launcher == "local":
         outcome = run_local(to_run, workers, opts)
     else:
-        from runner.slurm import run_submitit
+        from seedsweep.runner.launch.slurm import run_submitit
 
         outcome = run_submitit(to_run, opts)
     done = len(complete) + outcome.complete

@@ -16,8 +16,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from runner.run import PreparedRun, read_run_json
-from runner.sweep_progress import SweepProgress
+from seedsweep.runner.execution.run import PreparedRun, read_run_json
+from seedsweep.runner.launch.sweep_progress import SweepProgress
 
 EXIT_BUSY = 3
 
@@ -56,7 +56,7 @@ def run_job(config: dict[str, Any], retry_failed: bool = False, progress: Any = 
     Skip, resume and locking are the same wherever it runs. Returns the final run.json, or
     ``{"status": "busy"}`` if another process holds the run's lock.
     """
-    from runner.run import RunBusy, execute, interrupt_on_sigterm, prepare
+    from seedsweep.runner.execution.run import RunBusy, execute, interrupt_on_sigterm, prepare
 
     interrupt_on_sigterm()
     prepared = prepare(config)
@@ -69,7 +69,7 @@ def run_job(config: dict[str, Any], retry_failed: bool = False, progress: Any = 
 def _worker(config: dict[str, Any], retry_failed: bool, messages) -> None:
     import sys
 
-    from runner.progress import QueueProgress
+    from seedsweep.runner.launch.progress import QueueProgress
 
     try:
         doc = run_job(config, retry_failed, progress=QueueProgress(messages))
@@ -161,7 +161,7 @@ def _death_reason(exitcode: int | None) -> str:
 
 def mark_failed(p: PreparedRun, reason: str) -> None:
     """Record the failure of a run whose own process could not (it died)."""
-    from runner import records
+    from seedsweep.runner.execution import records
 
     doc = read_run_json(p.run_dir) or {"run_id": p.run_id}
     doc.update(status="failed", error=reason, finished=records.now_iso())

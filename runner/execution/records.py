@@ -125,7 +125,8 @@ def provenance() -> dict[str, Any]:
 
 
 def code_root() -> Path:
-    return Path(__file__).resolve().parent.parent
+    """The folder holding the installed packages' sources (the repo in a checkout)."""
+    return Path(__file__).resolve().parents[2]
 
 
 _CODE_VERSION: str | None = None
@@ -143,7 +144,7 @@ def code_version() -> str:
         h = hashlib.sha256()
         root = code_root()
         files = [*(root / "agents").rglob("*.py"), *(root / "envs").rglob("*.py"),
-                 *(root / "runner" / f"{m}.py" for m in RESULT_MODULES)]
+                 *(root / "runner" / "execution").rglob("*.py")]
         for f in sorted(files):
                 h.update(str(f.relative_to(root)).encode())
                 h.update(f.read_bytes())

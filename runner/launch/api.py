@@ -5,8 +5,8 @@ from __future__ import annotations
 from collections.abc import Sequence
 from pathlib import Path
 
-from runner.config import compose
-from runner.run import execute, prepare
+from seedsweep.runner.execution.config import compose
+from seedsweep.runner.execution.run import execute, prepare
 
 
 def run(overrides: Sequence[str], *, results_dir: str | None = None, quiet: bool = True,

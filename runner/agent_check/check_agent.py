@@ -1,4 +1,4 @@
-"""``seedsweep check-agent``: does an agent keep the contract of :mod:`agents.base`?
+"""``seedsweep check-agent``: does an agent keep the contract of :mod:`seedsweep.agents.base`?
 
 The runner trusts every agent to act inside its action space, to be a function of its seed
 and of what it is shown only, to save all it needs in ``state_dict`` and to leave the global
@@ -33,8 +33,8 @@ import numpy as np
 import torch
 from gymnasium import spaces
 
-from agents.base import CONTRACT_VERSION, Agent, ConfigError, Step, build_config, check_type
-from envs.build import EnvSpec, make_eval_env, make_train_envs, parse_env_config
+from seedsweep.agents.base import CONTRACT_VERSION, Agent, ConfigError, Step, build_config, check_type
+from seedsweep.envs.build import EnvSpec, make_eval_env, make_train_envs, parse_env_config
 
 DEFAULT_ENVS = ("cartpole", "pendulum", "frozenlake")
 DEFAULT_STEPS = 300  # act/observe calls per loop; "a few hundred" keeps a check run short
@@ -861,7 +861,7 @@ class Options:
 
 
 def parse_args(argv: Sequence[str]) -> Options:
-    from runner.config import parse_overrides
+    from seedsweep.runner.execution.config import parse_overrides
 
     argv, config_dirs = list(argv), []
     while "--config-dir" in argv:
@@ -908,8 +908,8 @@ def parse_args(argv: Sequence[str]) -> Options:
 def resolve_target(target: str, config_dirs: Sequence[str] = ()
                    ) -> tuple[type[Agent], dict[str, Any], str]:
     """The agent class, its hyperparameters from YAML (if a config name) and a label."""
-    from runner.config import compose, group_options
-    from runner.run import load_agent_class
+    from seedsweep.runner.execution.config import compose, group_options
+    from seedsweep.runner.execution.run import load_agent_class
 
     values: dict[str, Any] = {}
     entry = target
@@ -930,7 +930,7 @@ def resolve_target(target: str, config_dirs: Sequence[str] = ()
 
 def env_specs(names: Sequence[str], config_dirs: Sequence[str] = ()
               ) -> list[tuple[str, EnvSpec]]:
-    from runner.config import compose, group_options
+    from seedsweep.runner.execution.config import compose, group_options
 
     dirs = [Path(d) for d in config_dirs]
     allowed = group_options("env", dirs)

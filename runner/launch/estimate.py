@@ -15,8 +15,8 @@ import tempfile
 import time
 from pathlib import Path
 
-from runner.progress import _fmt_eta
-from runner.records import atomic_write_json
+from seedsweep.runner.launch.progress import _fmt_eta
+from seedsweep.runner.execution.records import atomic_write_json
 
 CALIBRATION_STEPS = 2000
 STARTUP_S = 3.5  # per run: a fresh process importing torch and gymnasium (measured here, 2-4 s)
@@ -54,7 +54,7 @@ def calibrate(p) -> float:
     """Seconds per env step of one agent × env pair, from a short throwaway run."""
     import copy
 
-    from runner.run import execute, prepare
+    from seedsweep.runner.execution.run import execute, prepare
 
     cfg = copy.deepcopy(p.config)
     steps = min(int(cfg["steps"]), CALIBRATION_STEPS)

@@ -11,16 +11,16 @@ import sys
 from collections.abc import Sequence
 from pathlib import Path
 
-from agents.base import ConfigError
+from seedsweep.agents.base import ConfigError
 
 COMMANDS = {
-    "run": ("runner.cli", "run_main", "train and evaluate one run, or a sweep with -m"),
-    "configs": ("runner.cli", "configs_main", "list the agent and env configs"),
-    "status": ("runner.status", "status_main", "what a sweep folder holds: done, running, ..."),
-    "report": ("runner.report", "report_main", "aggregate a sweep folder into a report"),
-    "compare": ("runner.compare", "compare_main", "is a candidate agent better than baselines?"),
-    "plan-seeds": ("runner.compare", "plan_seeds_main", "how many seeds a comparison needs"),
-    "check-agent": ("runner.check_agent", "check_agent_main",
+    "run": ("seedsweep.runner.commands.cli", "run_main", "train and evaluate one run, or a sweep with -m"),
+    "configs": ("seedsweep.runner.commands.cli", "configs_main", "list the agent and env configs"),
+    "status": ("seedsweep.runner.launch.status", "status_main", "what a sweep folder holds: done, running, ..."),
+    "report": ("seedsweep.runner.analysis.report", "report_main", "aggregate a sweep folder into a report"),
+    "compare": ("seedsweep.runner.analysis.compare", "compare_main", "is a candidate agent better than baselines?"),
+    "plan-seeds": ("seedsweep.runner.analysis.compare", "plan_seeds_main", "how many seeds a comparison needs"),
+    "check-agent": ("seedsweep.runner.agent_check.check_agent", "check_agent_main",
                     "check an agent against the contract"),
 }
 
@@ -62,8 +62,8 @@ def _usage() -> str:
 
 # -- run ---------------------------------------------------------------------------------
 def run_help() -> str:
-    from envs.wrappers import WRAPPERS
-    from runner.config import group_options
+    from seedsweep.envs.wrappers import WRAPPERS
+    from seedsweep.runner.execution.config import group_options
 
     agents = ", ".join(group_options("agent"))
     envs = ", ".join(group_options("env"))
@@ -118,7 +118,7 @@ def run_main(argv: Sequence[str]) -> int:
     if any(a in ("-h", "--help") for a in argv):
         print(run_help())
         return 0
-    from runner.sweep import SweepOptions, plan, run_sweep
+    from seedsweep.runner.launch.sweep import SweepOptions, plan, run_sweep
 
     parser = argparse.ArgumentParser(prog="seedsweep run", add_help=False)
     parser.add_argument("-m", "--multirun", action="store_true")
@@ -154,11 +154,11 @@ def run_main(argv: Sequence[str]) -> int:
             raise ConfigError("--slurm", f"expected KEY=VALUE, got {item!r}")
         slurm[key] = _number_or_text(value)
     if opts.sweep_file:
-        from runner.sweep_file import expand_file, find
+        from seedsweep.runner.launch.plan_files import expand_file, find
 
         groups = expand_file(find(opts.sweep_file, opts.config_dir), overrides)
         planned = [p for g in groups for p in plan(g, multirun=True, extra_dirs=opts.config_dir)]
-        from runner.sweep import interleave
+        from seedsweep.runner.launch.sweep import interleave
 
         planned = interleave(planned)
         multirun = True
@@ -187,8 +187,8 @@ def _number_or_text(value: str):
 
 def _run_single(p, opts) -> int:
     """One run in this process, with its own progress display; same skip/resume rules."""
-    from runner.run import RunBusy, execute, interrupt_on_sigterm
-    from runner.sweep import check_code_version
+    from seedsweep.runner.execution.run import RunBusy, execute, interrupt_on_sigterm
+    from seedsweep.runner.launch.sweep import check_code_version
 
     interrupt_on_sigterm()
     check_code_version(p.run_dir.parent, opts.allow_mixed_code)
@@ -214,7 +214,7 @@ def _run_single(p, opts) -> int:
 def configs_main(argv: Sequence[str]) -> int:
     import yaml
 
-    from runner.config import config_dir, group_options
+    from seedsweep.runner.execution.config import config_dir, group_options
 
     parser = argparse.ArgumentParser(prog="seedsweep configs",
                                      description="list the agent, env, suite and sweep configs")

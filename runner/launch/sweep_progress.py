@@ -11,7 +11,7 @@ import sys
 import time
 from typing import Any
 
-from runner.progress import _fmt_eta
+from seedsweep.runner.launch.progress import _fmt_eta
 
 
 class SweepProgress:

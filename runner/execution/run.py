@@ -21,13 +21,14 @@ from typing import Any
 import torch
 from filelock import FileLock, Timeout
 
-from agents.base import Agent, ConfigError, build_config
-from envs.build import EnvSpec, make_eval_env, make_train_envs, parse_env_config
-from runner import checkpoints, records
-from runner.config import check_run_config
-from runner.loop import Schedule, Trainer
-from runner.progress import RunProgress
-from runner.seeding import RunSeeds, derive_seeds, seed_globals
+from seedsweep.agents.base import Agent, ConfigError, build_config
+from seedsweep.envs.build import EnvSpec, make_eval_env, make_train_envs, parse_env_config
+from seedsweep.runner.execution import checkpoints
+from seedsweep.runner.execution import records
+from seedsweep.runner.execution.config import check_run_config
+from seedsweep.runner.execution.loop import Schedule, Trainer
+from seedsweep.runner.launch.progress import RunProgress
+from seedsweep.runner.execution.seeding import RunSeeds, derive_seeds, seed_globals
 
 CHECKPOINT = "checkpoint.pt"
 LOCK = ".lock"
@@ -285,7 +286,7 @@ def _train(p: PreparedRun, progress: Any, log, existing: dict[str, Any] | None) 
         records.atomic_write_json(run_dir / "run.json", doc)
         checkpoints.clear(run_dir)
         if loop_s > 0 and not resumed:
-            from runner.estimate import remember
+            from seedsweep.runner.launch.estimate import remember
 
             remember(p, loop_s / max(1, trainer.env_steps))
         return doc

@@ -17,7 +17,7 @@ matplotlib.use("Agg")
 from matplotlib import rc_context  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
-from runner.stats import STATISTICS  # noqa: E402
+from seedsweep.runner.analysis.stats import STATISTICS  # noqa: E402
 
 STAT_TITLES = {"iqm": "IQM", "mean": "Mean", "median": "Median",
                "optimality_gap": "Optimality gap"}

@@ -13,7 +13,7 @@ from collections import Counter
 from collections.abc import Iterable, Sequence
 from typing import Any
 
-from runner.stats import STATISTICS
+from seedsweep.runner.analysis.stats import STATISTICS
 
 STYLE = """
 body{font-family:system-ui,sans-serif;margin:2em auto;max-width:1100px;color:#222}

@@ -14,7 +14,8 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-from agents.base import ConfigError, check_type
+import seedsweep.configs
+from seedsweep.agents.base import ConfigError, check_type
 
 TOP_KEYS = {
     "agent", "env", "seed", "steps", "eval", "sweep", "results_dir", "torch_threads",
@@ -28,7 +29,8 @@ HYDRA_GROUPS = ("agent", "env")  # config folders that are hydra groups
 
 
 def config_dir() -> Path:
-    return Path(__file__).resolve().parent.parent / "configs"
+    """The shipped configs (package data of ``seedsweep.configs``)."""
+    return Path(seedsweep.configs.__file__).resolve().parent
 
 
 _HYDRA_ROOTS: dict[str, str] = {}

@@ -12,9 +12,9 @@ import sys
 import time
 from pathlib import Path
 
-from runner import records
-from runner.sweep_progress import SweepProgress
-from runner.workers import Outcome, mark_failed, run_job
+from seedsweep.runner.execution import records
+from seedsweep.runner.launch.sweep_progress import SweepProgress
+from seedsweep.runner.launch.workers import Outcome, mark_failed, run_job
 
 # One run per job needs one core; memory is whatever a run needs (about 0.5 GB for the
 # shipped agents), settable with --slurm mem_gb=... to fit the cluster's nodes.
@@ -95,6 +95,6 @@ def run_submitit(planned, opts) -> Outcome:
 
 
 def _read(run_dir: Path):
-    from runner.run import read_run_json
+    from seedsweep.runner.execution.run import read_run_json
 
     return read_run_json(run_dir)

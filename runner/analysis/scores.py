@@ -7,7 +7,7 @@ where *random* is the uniform-random agent's score under the same evaluation pro
 *reference* comes, in order of preference, from the user (``env.reference``), the exact
 optimum of a tabular env (:mod:`runner.oracle`), or the gymnasium spec's ``reward_threshold``.
 
-Every problem with the input raises :class:`agents.base.ConfigError` with one clear line.
+Every problem with the input raises :class:`seedsweep.agents.base.ConfigError` with one clear line.
 """
 
 from __future__ import annotations
@@ -25,8 +25,8 @@ from typing import Any
 
 import numpy as np
 
-from agents.base import ConfigError
-from runner import stats
+from seedsweep.agents.base import ConfigError
+from seedsweep.runner.analysis import stats
 
 EVAL_HEADER = ["env_step", "episode", "return", "discounted_return", "length", "episode_seed"]
 RANDOM_AGENT = "random"
@@ -387,7 +387,7 @@ def reference_score(env_cfg: dict[str, Any]) -> tuple[float, str, str]:
     oracle_value = oracle_reference(env_cfg)
     if oracle_value is not None:
         return oracle_value
-    from envs.build import make_env, parse_env_config
+    from seedsweep.envs.build import make_env, parse_env_config
 
     env = make_env(parse_env_config(dict(env_cfg)))
     try:
@@ -405,8 +405,8 @@ def reference_score(env_cfg: dict[str, Any]) -> tuple[float, str, str]:
 def oracle_reference(env_cfg: dict[str, Any]) -> tuple[float, str, str] | None:
     """Exact optimal expected undiscounted return from the start, under the env's time limit,
     for tabular envs with a transition table; None when the oracle does not apply."""
-    from envs.build import make_env, parse_env_config
-    from runner import oracle
+    from seedsweep.envs.build import make_env, parse_env_config
+    from seedsweep.runner.analysis import oracle
 
     names = {w if isinstance(w, str) else w.get("name") for w in env_cfg.get("wrappers") or []}
     if not names <= ORACLE_SAFE_WRAPPERS:
@@ -502,7 +502,7 @@ def random_from_cache(
 def _measure_random(folder: Path, env_cfg: dict[str, Any], deterministic: bool, episodes: int,
                     runner: Callable[..., Path] | None) -> Path:
     if runner is None:
-        from runner.api import run as runner
+        from seedsweep.runner.launch.api import run as runner
     overrides = random_overrides(env_cfg, deterministic, episodes)
     try:
         return Path(runner(overrides, results_dir=str(folder)))

@@ -1,6 +1,6 @@
 """The training loop: step the training envs, feed the agent, evaluate on schedule.
 
-The loop is the same for every agent: it calls only the :class:`agents.base.Agent`
+The loop is the same for every agent: it calls only the :class:`seedsweep.agents.base.Agent`
 interface. Its whole state (counters, records so far, the current observations and the
 agent's own state) can be captured between two steps for checkpoints.
 """
@@ -16,10 +16,10 @@ from typing import Any
 import numpy as np
 import torch
 
-from agents.base import Agent, Step
-from envs.batch import TrainEnvs
-from runner.progress import RunProgress
-from runner.protocol import EpisodeRecord, evaluate, mean_and_stderr
+from seedsweep.agents.base import Agent, Step
+from seedsweep.envs.batch import TrainEnvs
+from seedsweep.runner.launch.progress import RunProgress
+from seedsweep.runner.execution.protocol import EpisodeRecord, evaluate, mean_and_stderr
 
 CHECK_EVERY = 256  # steps between looks at the clock (progress display)
 
@@ -218,7 +218,7 @@ class Trainer:
 
     def capture(self, final: bool = False) -> dict[str, Any]:
         """Everything needed to continue this run from here (or its final state)."""
-        from runner.checkpoints import global_rng_state
+        from seedsweep.runner.execution.checkpoints import global_rng_state
 
         return {
             "agent": self.agent.state_dict(),
@@ -228,7 +228,7 @@ class Trainer:
         }
 
     def restore(self, state: dict[str, Any]) -> None:
-        from runner.checkpoints import load_global_rng_state
+        from seedsweep.runner.execution.checkpoints import load_global_rng_state
 
         self.agent.load_state_dict(state["agent"])
         self.obs = self.envs.load_state_dict(state["envs"])

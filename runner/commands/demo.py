@@ -10,7 +10,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from runner.cli import main as cli_main
+from seedsweep.runner.commands.cli import main as cli_main
 
 SWEEP_FILE = "demo"
 FOLDER = Path("results") / "demo-v1"

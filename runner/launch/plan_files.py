@@ -13,8 +13,8 @@ from typing import Any
 
 import yaml
 
-from agents.base import ConfigError
-from runner.config import config_dir
+from seedsweep.agents.base import ConfigError
+from seedsweep.runner.execution.config import config_dir
 
 KEYS = {"name", "version", "agents", "envs", "seeds", "steps", "overrides", "grid", "description"}
 

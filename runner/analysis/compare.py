@@ -33,10 +33,13 @@ from typing import Any
 
 import numpy as np
 
-from agents.base import ConfigError
-from runner import power, report, scores, stats
-from runner.options import OneLineParser as _Parser
-from runner.scores import RANDOM_AGENT
+from seedsweep.agents.base import ConfigError
+from seedsweep.runner.analysis import power
+from seedsweep.runner.analysis import report
+from seedsweep.runner.analysis import scores
+from seedsweep.runner.analysis import stats
+from seedsweep.runner.commands.options import OneLineParser as _Parser
+from seedsweep.runner.analysis.scores import RANDOM_AGENT
 
 VERDICTS = ("better", "worse", "insufficient evidence")
 VERDICT_RULE = (
@@ -367,8 +370,8 @@ def dumps(doc: dict[str, Any]) -> str:
 def write_comparison(doc: dict[str, Any], sweep_dir: Path) -> Path:
     """compare.json into the report folder (made if missing), and the Comparison section of
     report.html replaced when the page exists. Each file is replaced atomically."""
-    from runner import html_report
-    from runner.records import atomic_write_text
+    from seedsweep.runner.present import html as html_report
+    from seedsweep.runner.execution.records import atomic_write_text
 
     check_output_folder(sweep_dir)
     folder = Path(sweep_dir) / "report"

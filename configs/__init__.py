@@ -1,0 +1,1 @@
+"""seedsweep configs: the shipped YAML files (package data)."""
