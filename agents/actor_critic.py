@@ -1,16 +1,16 @@
 """Synchronous advantage actor-critic, A2C (the synchronous variant of A3C, Mnih et al. 2016).
 
-``num_envs`` envs are stepped together; every ``n_steps`` vector steps the agent takes one
-gradient step on the whole ``n_steps × num_envs`` rollout with
-``loss = −mean(A_t log π(a_t|s_t)) + value_coef·mean((V(s_t) − R_t)²) − entropy_coef·mean(H)``
+``num_envs`` envs are stepped together; every ``rollout_steps`` vector steps the agent takes one
+gradient step on the whole ``rollout_steps × num_envs`` rollout with
+``loss = −mean(A_t log π(a_t|s_t)) + value_weight·mean((V(s_t) − R_t)²) − entropy_weight·mean(H)``
 and clips the gradient norm: of the whole network with a shared torso, else of the policy and
 the value network separately (a large value gradient would otherwise shrink the policy step).
 
-How the advantage is chosen — by ``gae_lambda`` alone:
+How the advantage is chosen — by ``advantage_lambda`` alone:
 
-* ``gae_lambda = 1``: n-step returns as in A3C. ``R_t`` sums the rewards to the end
+* ``advantage_lambda = 1``: n-step returns as in A3C. ``R_t`` sums the rewards to the end
   of the rollout (or of the episode) and bootstraps with ``V`` there; ``A_t = R_t − V(s_t)``.
-* ``gae_lambda < 1`` (default 0.95): GAE(γ, λ) (Schulman et al. 2016);
+* ``advantage_lambda < 1`` (default 0.95): GAE(γ, λ) (Schulman et al. 2016);
   ``R_t = A_t + V(s_t)`` (the λ-return). λ=0 is the one-step TD error; λ=1 through GAE
   gives the same numbers as the n-step path.
 
@@ -55,25 +55,25 @@ class ActorCritic(Agent):
         gamma: float = 0.99
         num_envs: int = 8
         vector_mode: Literal["sync", "async"] = "sync"
-        n_steps: int = 16
-        gae_lambda: float = 0.95
+        rollout_steps: int = 16
+        advantage_lambda: float = 0.95
         lr: float = 0.002
         adam_eps: float = 1e-5
-        value_coef: float = 0.5
-        entropy_coef: float = 0.0
-        max_grad_norm: float | None = 0.5
-        normalize_advantages: bool = False
+        value_weight: float = 0.5
+        entropy_weight: float = 0.0
+        grad_clip_norm: float | None = 0.5
+        standardize: Literal["none", "advantages"] = "none"
         shared_torso: bool = False
 
         def __post_init__(self) -> None:
             require("gamma", self.gamma, 0.0 < self.gamma <= 1.0, "in (0, 1]")
             require("num_envs", self.num_envs, self.num_envs >= 1, ">= 1")
-            require("n_steps", self.n_steps, self.n_steps >= 1, ">= 1")
-            require("gae_lambda", self.gae_lambda, 0.0 <= self.gae_lambda <= 1.0, "in [0, 1]")
+            require("rollout_steps", self.rollout_steps, self.rollout_steps >= 1, ">= 1")
+            require("advantage_lambda", self.advantage_lambda, 0.0 <= self.advantage_lambda <= 1.0, "in [0, 1]")
             require("lr", self.lr, self.lr > 0, "> 0")
             require("adam_eps", self.adam_eps, self.adam_eps > 0, "> 0")
-            require("value_coef", self.value_coef, self.value_coef >= 0, ">= 0")
-            require("entropy_coef", self.entropy_coef, self.entropy_coef >= 0, ">= 0")
+            require("value_weight", self.value_weight, self.value_weight >= 0, ">= 0")
+            require("entropy_weight", self.entropy_weight, self.entropy_weight >= 0, ">= 0")
             self.check_network()
 
     def __init__(self, observation_space, action_space, config, seed):
@@ -81,7 +81,7 @@ class ActorCritic(Agent):
         c = config
         self.obs_dim = flat_dim(observation_space)
         self.rng, self.gen = make_generators(seed)
-        self.head = PolicyHead(action_space, c.log_std, c.log_std_init, c.squash)
+        self.head = PolicyHead(action_space, c.gaussian_std, c.gaussian_log_std_start, c.gaussian_squash)
         k = self.head.out_dim
         if c.shared_torso:
             self.net = mlp(self.obs_dim, c.hidden, k + 1, self.gen, c.activation, c.init,
@@ -126,7 +126,7 @@ class ActorCritic(Agent):
         r["truncated"][t] = step.truncated
         r["next_obs"][t] = np.asarray(step.next_obs, dtype=np.float32).reshape(n, -1)
         self._t += 1
-        if self._t == self.config.n_steps:
+        if self._t == self.config.rollout_steps:
             return self._update()
         return {}
 
@@ -147,13 +147,13 @@ class ActorCritic(Agent):
             if need.any():
                 x = torch.from_numpy(r["next_obs"][need])
                 next_values[need] = self._values(x).double().numpy()
-        if c.gae_lambda == 1.0:
+        if c.advantage_lambda == 1.0:
             returns = nstep_returns(r["rewards"], next_values, r["terminated"], r["truncated"],
                                     c.gamma)
             advantages = returns - values
         else:
             advantages = gae(r["rewards"], values, next_values, r["terminated"],
-                             r["truncated"], c.gamma, c.gae_lambda)
+                             r["truncated"], c.gamma, c.advantage_lambda)
             returns = advantages + values
         flat = T * n
         batch = {
@@ -171,7 +171,7 @@ class ActorCritic(Agent):
         dist = self.head(out)
         log_prob = dist.log_prob(batch["actions"], batch["pre"])
         adv = batch["advantages"]
-        if self.config.normalize_advantages and len(adv) > 1:
+        if self.config.standardize == "advantages" and len(adv) > 1:
             adv = (adv - adv.mean()) / (adv.std(unbiased=False) + 1e-8)
         return {
             "policy_loss": -(adv * log_prob).mean(),
@@ -183,17 +183,17 @@ class ActorCritic(Agent):
         c = self.config
         loss = self.losses(self.rollout_batch())
         self._t = 0
-        total = (loss["policy_loss"] + c.value_coef * loss["value_loss"]
-                 - c.entropy_coef * loss["entropy"])
+        total = (loss["policy_loss"] + c.value_weight * loss["value_loss"]
+                 - c.entropy_weight * loss["entropy"])
         self.opt.zero_grad(set_to_none=True)
         total.backward()
         scalars = {k: float(v.detach()) for k, v in loss.items()}
         if self.value_net is None:  # one network: one gradient, clipped as a whole
-            scalars["grad_norm"] = clip_grad_norm(self.params, c.max_grad_norm)
+            scalars["grad_norm"] = clip_grad_norm(self.params, c.grad_clip_norm)
         else:  # two networks: the value gradient must not shrink the policy's
-            scalars["grad_norm"] = clip_grad_norm(self.policy_params, c.max_grad_norm)
+            scalars["grad_norm"] = clip_grad_norm(self.policy_params, c.grad_clip_norm)
             scalars["value_grad_norm"] = clip_grad_norm(self.value_net.parameters(),
-                                                        c.max_grad_norm)
+                                                        c.grad_clip_norm)
         self.opt.step()
         self.updates += 1
         return scalars
@@ -213,7 +213,7 @@ class ActorCritic(Agent):
 
     def _alloc_rollout(self) -> None:
         c = self.config
-        shape = (c.n_steps, c.num_envs)
+        shape = (c.rollout_steps, c.num_envs)
         action_shape = () if self.head.discrete else (self.head.action_dim,)
         action_dtype = np.int64 if self.head.discrete else np.float32
         self._rollout: dict[str, np.ndarray] = {

@@ -1,8 +1,8 @@
 """DQN: Mnih et al. 2015, "Human-level control through deep reinforcement learning".
 
-Replay buffer, target network (hard copies every ``target_update_every`` env steps, or
+Replay buffer, target network (hard copies every ``target_period_steps`` env steps, or
 Polyak averaging), linear ε-greedy, Huber loss, Adam, gradient-norm clipping; Double DQN
-targets (van Hasselt et al. 2016) with ``double: true``. Only the terminated flag stops
+targets (van Hasselt et al. 2016) with ``double_q: true``. Only the terminated flag stops
 bootstrapping: a time-limit truncation still bootstraps from the final observation.
 """
 
@@ -31,37 +31,37 @@ class DQN(Agent):
         gamma: float = 0.99
         lr: float = 5e-4
         batch_size: int = 64
-        buffer_size: int = 50_000
-        learning_starts: int = 1_000
-        train_every: int = 1
-        target_update_every: int = 500
-        polyak: float | None = None
+        replay_capacity: int = 50_000
+        replay_warmup_steps: int = 1_000
+        update_period_steps: int = 1
+        target_period_steps: int = 500
+        target_blend: float | None = None
         hidden: list[int] = field(default_factory=lambda: [64, 64])
-        eps_start: float = 1.0
-        eps_end: float = 0.05
-        eps_decay_steps: int = 10_000
-        double: bool = True
-        max_grad_norm: float | None = 10.0
+        epsilon_start: float = 1.0
+        epsilon_end: float = 0.05
+        epsilon_decay_steps: int = 10_000
+        double_q: bool = True
+        grad_clip_norm: float | None = 10.0
         num_envs: int = 1
 
         def __post_init__(self):
             require("lr", self.lr, self.lr > 0, "> 0")
             require("batch_size", self.batch_size, self.batch_size >= 1, ">= 1")
-            require("buffer_size", self.buffer_size, self.buffer_size >= 1, ">= 1")
-            require("learning_starts", self.learning_starts, self.learning_starts >= 0, ">= 0")
-            require("train_every", self.train_every, self.train_every >= 1, ">= 1")
-            require("target_update_every", self.target_update_every,
-                    self.target_update_every >= 1, ">= 1")
-            require("polyak", self.polyak, self.polyak is None or 0 < self.polyak <= 1,
+            require("replay_capacity", self.replay_capacity, self.replay_capacity >= 1, ">= 1")
+            require("replay_warmup_steps", self.replay_warmup_steps, self.replay_warmup_steps >= 0, ">= 0")
+            require("update_period_steps", self.update_period_steps, self.update_period_steps >= 1, ">= 1")
+            require("target_period_steps", self.target_period_steps,
+                    self.target_period_steps >= 1, ">= 1")
+            require("target_blend", self.target_blend, self.target_blend is None or 0 < self.target_blend <= 1,
                     "null or in (0, 1]")
             require("hidden", self.hidden, len(self.hidden) > 0 and min(self.hidden) >= 1,
                     "a non-empty list of positive layer widths")
-            for name in ("eps_start", "eps_end"):
+            for name in ("epsilon_start", "epsilon_end"):
                 v = getattr(self, name)
                 require(name, v, 0 <= v <= 1, "in [0, 1]")
-            require("eps_decay_steps", self.eps_decay_steps, self.eps_decay_steps >= 0, ">= 0")
-            require("max_grad_norm", self.max_grad_norm,
-                    self.max_grad_norm is None or self.max_grad_norm > 0, "null or > 0")
+            require("epsilon_decay_steps", self.epsilon_decay_steps, self.epsilon_decay_steps >= 0, ">= 0")
+            require("grad_clip_norm", self.grad_clip_norm,
+                    self.grad_clip_norm is None or self.grad_clip_norm > 0, "null or > 0")
             require("num_envs", self.num_envs, self.num_envs >= 1, ">= 1")
 
     def __init__(self, observation_space, action_space, config: Config, seed: int):
@@ -79,8 +79,8 @@ class DQN(Agent):
         self.target_numpy = NumpyMLP(self.target)
         self.opt = self.flat.adam(c.lr)
         self._grads = self.q_numpy.grad_views(self.q)  # views into self.flat.grad
-        self.buffer = ReplayBuffer(c.buffer_size, (self.obs_dim,))
-        self.epsilon = LinearSchedule(c.eps_start, c.eps_end, c.eps_decay_steps)
+        self.buffer = ReplayBuffer(c.replay_capacity, (self.obs_dim,))
+        self.epsilon = LinearSchedule(c.epsilon_start, c.epsilon_end, c.epsilon_decay_steps)
         self.env_steps = 0
         self.updates = 0
         self._train_credit = 0
@@ -107,14 +107,14 @@ class DQN(Agent):
                         step.next_obs.reshape(n, -1), step.terminated)
         self.env_steps = step.env_steps
         c = self.config
-        if self.env_steps < c.learning_starts:
+        if self.env_steps < c.replay_warmup_steps:
             return {}
         self._train_credit += n
         metrics: dict[str, float] = {}
-        while self._train_credit >= c.train_every:
-            self._train_credit -= c.train_every
+        while self._train_credit >= c.update_period_steps:
+            self._train_credit -= c.update_period_steps
             metrics["loss"] = self._update()
-        if c.polyak is None and self.env_steps - self._last_target_copy >= c.target_update_every:
+        if c.target_blend is None and self.env_steps - self._last_target_copy >= c.target_period_steps:
             self.target.load_state_dict(self.q.state_dict())
             self._last_target_copy = self.env_steps
         if metrics:
@@ -126,7 +126,7 @@ class DQN(Agent):
         b = self.buffer.sample(c.batch_size, self.rng)
         # Bootstrap targets need no gradient: computed in numpy on views of the weights.
         next_target = self.target_numpy(b["next_obs"])
-        if c.double:
+        if c.double_q:
             best = self.q_numpy(b["next_obs"]).argmax(axis=1)
         else:
             best = next_target.argmax(axis=1)
@@ -142,13 +142,13 @@ class DQN(Agent):
         grad_q = np.zeros_like(q)
         grad_q[rows, b["actions"]] = np.clip(error, -1.0, 1.0) / len(error)
         self.q_numpy.backward(inputs, grad_q, self._grads)
-        self.flat.clip_grad_norm_(c.max_grad_norm)
+        self.flat.clip_grad_norm_(c.grad_clip_norm)
         self.opt.step()
         self.updates += 1
-        if c.polyak is not None:
+        if c.target_blend is not None:
             with torch.no_grad():
                 torch._foreach_lerp_(list(self.target.parameters()), list(self.q.parameters()),
-                                     c.polyak)
+                                     c.target_blend)
         return loss
 
     # -- state ---------------------------------------------------------------------------

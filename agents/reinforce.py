@@ -58,9 +58,9 @@ class Reinforce(Agent):
         policy_lr: float = 0.001
         value_lr: float = 0.001
         adam_eps: float = 1e-8
-        normalize: Literal["none", "returns", "advantages"] = "advantages"
-        entropy_coef: float = 0.0
-        max_grad_norm: float | None = None
+        standardize: Literal["none", "returns", "advantages"] = "advantages"
+        entropy_weight: float = 0.0
+        grad_clip_norm: float | None = None
 
         def __post_init__(self) -> None:
             require("gamma", self.gamma, 0.0 < self.gamma <= 1.0, "in (0, 1]")
@@ -70,7 +70,7 @@ class Reinforce(Agent):
             require("policy_lr", self.policy_lr, self.policy_lr > 0, "> 0")
             require("value_lr", self.value_lr, self.value_lr > 0, "> 0")
             require("adam_eps", self.adam_eps, self.adam_eps > 0, "> 0")
-            require("entropy_coef", self.entropy_coef, self.entropy_coef >= 0, ">= 0")
+            require("entropy_weight", self.entropy_weight, self.entropy_weight >= 0, ">= 0")
             self.check_network()
 
     def __init__(self, observation_space, action_space, config, seed):
@@ -78,7 +78,7 @@ class Reinforce(Agent):
         c = config
         self.obs_dim = flat_dim(observation_space)
         self.rng, self.gen = make_generators(seed)
-        self.head = PolicyHead(action_space, c.log_std, c.log_std_init, c.squash)
+        self.head = PolicyHead(action_space, c.gaussian_std, c.gaussian_log_std_start, c.gaussian_squash)
         self.policy_net = mlp(self.obs_dim, c.hidden, self.head.out_dim, self.gen,
                               c.activation, c.init, POLICY_OUT_GAIN)
         self.value_net = mlp(self.obs_dim, c.hidden, 1, self.gen, c.activation, c.init,
@@ -151,13 +151,13 @@ class Reinforce(Agent):
         entropy = dist.entropy().mean()
         values = self.value_net(batch["obs"]).squeeze(-1)
         returns = batch["returns"]
-        if self.config.normalize == "returns":
+        if self.config.standardize == "returns":
             weights = _standardise(returns)
         else:
             weights = returns - values.detach()
-            if self.config.normalize == "advantages":
+            if self.config.standardize == "advantages":
                 weights = _standardise(weights)
-        policy_loss = -(weights * log_prob).mean() - self.config.entropy_coef * entropy
+        policy_loss = -(weights * log_prob).mean() - self.config.entropy_weight * entropy
         value_loss = 0.5 * (values - returns).pow(2).mean()
         return {"policy_loss": policy_loss, "value_loss": value_loss, "entropy": entropy}
 
@@ -169,8 +169,8 @@ class Reinforce(Agent):
         self.policy_opt.zero_grad(set_to_none=True)
         self.value_opt.zero_grad(set_to_none=True)
         (loss["policy_loss"] + loss["value_loss"]).backward()
-        clip_grad_norm(self.policy_params, self.config.max_grad_norm)
-        clip_grad_norm(self.value_net.parameters(), self.config.max_grad_norm)
+        clip_grad_norm(self.policy_params, self.config.grad_clip_norm)
+        clip_grad_norm(self.value_net.parameters(), self.config.grad_clip_norm)
         self.policy_opt.step()
         self.value_opt.step()
         self.updates += 1

@@ -1,6 +1,6 @@
 """Speed of the runner's training loop, side by side with yardsticks, in one process.
 
-(a) DQN env steps/s on CartPole-v1 (train_every=1, batch 64, hidden [64, 64], one thread):
+(a) DQN env steps/s on CartPole-v1 (update_period_steps=1, batch 64, hidden [64, 64], one thread):
     the runner's agent vs the hand-written loop in ``yardstick_dqn.py``. Target >= 2x.
 (b) the runner's loop with ``agent=random`` (evaluation and logging on) vs raw gymnasium
     stepping with random actions. Target >= 0.8x.
@@ -53,8 +53,8 @@ def main() -> None:
     ap.add_argument("--dqn-steps", type=int, default=20_000)
     ap.add_argument("--random-steps", type=int, default=200_000)
     args = ap.parse_args()
-    dqn = ["agent=dqn", "env=cartpole", "agent.train_every=1", "agent.batch_size=64",
-           "agent.hidden=[64,64]", "agent.double=false", "agent.learning_starts=1000",
+    dqn = ["agent=dqn", "env=cartpole", "agent.update_period_steps=1", "agent.batch_size=64",
+           "agent.hidden=[64,64]", "agent.double_q=false", "agent.replay_warmup_steps=1000",
            "eval.every=10000", "eval.episodes=5", "torch_threads=1"]
     rnd = ["agent=random", "env=cartpole", "eval.every=50000", "eval.episodes=10"]
     a_run, a_yard, b_run, b_raw = [], [], [], []

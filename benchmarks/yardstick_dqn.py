@@ -2,7 +2,7 @@
 
 Deliberately plain, as one would first write it: batch-1 eager torch acting, default Adam,
 a deque of tuples as the replay buffer, ``random.sample`` minibatches. Same settings as the
-runner's DQN in the benchmark (train_every=1, batch 64, hidden [64, 64], one thread).
+runner's DQN in the benchmark (update_period_steps=1, batch 64, hidden [64, 64], one thread).
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ import torch.nn.functional as F
 from torch import nn
 
 
-def run(steps: int, seed: int = 0, batch: int = 64, learning_starts: int = 1000) -> float:
+def run(steps: int, seed: int = 0, batch: int = 64, replay_warmup_steps: int = 1000) -> float:
     """Train for ``steps`` env steps; returns env steps per second."""
     torch.set_num_threads(1)
     random.seed(seed)
@@ -44,7 +44,7 @@ def run(steps: int, seed: int = 0, batch: int = 64, learning_starts: int = 1000)
         obs = next_obs
         if terminated or truncated:
             obs, _ = env.reset()
-        if t >= learning_starts:
+        if t >= replay_warmup_steps:
             o, a, r, o2, d = zip(*random.sample(buffer, batch), strict=True)
             o = torch.as_tensor(np.array(o), dtype=torch.float32)
             o2 = torch.as_tensor(np.array(o2), dtype=torch.float32)

@@ -134,7 +134,7 @@ def test_dqn_update_gradient_is_the_huber_loss_gradient():
     from seedsweep.agents.dqn import DQN
 
     agent = DQN(spaces.Box(-1, 1, (4,), np.float32), spaces.Discrete(2),
-                DQN.Config(double=False, max_grad_norm=None, batch_size=16), seed=0)
+                DQN.Config(double_q=False, grad_clip_norm=None, batch_size=16), seed=0)
     rng = np.random.default_rng(3)
     for _ in range(40):
         agent.buffer.add(rng.normal(size=(1, 4)).astype(np.float32), rng.integers(2, size=1),

@@ -40,9 +40,9 @@ def run(capsys, *argv: str) -> tuple[int, dict[tuple[str, str], tuple[str, str]]
 
 # -- the shipped agents ------------------------------------------------------------------
 def test_dqn_passes_on_discrete_envs_and_skips_pendulum(capsys):
-    # learning_starts lowered so updates (and their state) happen inside the short loops
+    # replay_warmup_steps lowered so updates (and their state) happen inside the short loops
     code, lines = run(capsys, "dqn", "env=cartpole,pendulum,frozenlake", FAST,
-                      "agent.learning_starts=50", "agent.batch_size=16")
+                      "agent.replay_warmup_steps=50", "agent.batch_size=16")
     assert code == 0, lines
     for env in ("cartpole", "frozenlake"):
         for check in ("spaces", "actions", "determinism", "round_trip", "learn_loop"):

@@ -165,11 +165,11 @@ def test_modes_are_the_clipped_or_squashed_mean():
 def test_head_output_sizes_and_log_std_modes():
     box = spaces.Box(-1.0, 1.0, (3,), np.float32)
     assert PolicyHead(spaces.Discrete(4)).out_dim == 4
-    indep = PolicyHead(box, "state_independent", log_std_init=-0.5)
+    indep = PolicyHead(box, "state_independent", gaussian_log_std_start=-0.5)
     assert indep.out_dim == 3 and [n for n, _ in indep.named_parameters()] == ["log_std"]
     dist = indep(torch.zeros(2, 3))
     torch.testing.assert_close(dist.log_std, torch.full((2, 3), -0.5))
-    dep = PolicyHead(box, "state_dependent", log_std_init=-0.5)
+    dep = PolicyHead(box, "state_dependent", gaussian_log_std_start=-0.5)
     assert dep.out_dim == 6 and not list(dep.parameters())
     out = torch.tensor([[0.0, 0.0, 0.0, 0.3, 0.0, 100.0]])
     torch.testing.assert_close(dep(out).log_std, torch.tensor([[-0.2, -0.5, LOG_STD_MAX]]))

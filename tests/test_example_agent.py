@@ -144,7 +144,7 @@ def test_one_update_moves_q_by_alpha_times_the_td_error(terminated, truncated, t
     # gets (α/n)·δ, so q(s, a) moves by α·δ = α·(target − q(s, a)).
     # Targets from the hand-worked example above (q(s', ·) = (1, 3, 2), ε = 0.3, γ = 0.9).
     agent = make_agent(spaces.Box(0.0, 1.0, (1,)), 3, gamma=0.9, alpha=0.5, tiles=4,
-                       num_tilings=4, eps_start=0.3, eps_end=0.3)
+                       num_tilings=4, epsilon_start=0.3, epsilon_end=0.3)
     s, s_next = np.array([[0.05]]), np.array([[0.95]])  # 0.9 apart > one tile: no shared tile
     for a, value in enumerate([1.0, 3.0, 2.0]):
         agent.weights[a, agent.coder.active(s_next)[0]] = value / 4
@@ -159,7 +159,7 @@ def test_one_update_moves_q_by_alpha_times_the_td_error(terminated, truncated, t
 
 def test_behaviour_policy_draws_actions_with_the_epsilon_greedy_probabilities():
     # §5.4: ε-greedy takes each action with probability ε/|A| plus 1 − ε on the greedy one.
-    agent = make_agent(spaces.Box(0.0, 1.0, (1,)), 4, eps_start=0.4, eps_end=0.4)
+    agent = make_agent(spaces.Box(0.0, 1.0, (1,)), 4, epsilon_start=0.4, epsilon_end=0.4)
     obs = np.full((20_000, 1), 0.5, dtype=np.float32)
     agent.weights[3, agent.coder.active(obs[:1])[0]] = 1.0
     freq = np.bincount(agent.act(obs, explore=True), minlength=4) / len(obs)
@@ -180,7 +180,7 @@ def test_box_action_spaces_are_refused(tmp_path):
 
 
 @pytest.mark.parametrize("field,value,allowed", [
-    ("alpha", 0.0, "in (0, 1]"), ("num_tilings", 0, ">= 1"), ("eps_end", 1.5, "in [0, 1]"),
+    ("alpha", 0.0, "in (0, 1]"), ("num_tilings", 0, ">= 1"), ("epsilon_end", 1.5, "in [0, 1]"),
     ("unbounded_range", [1.0, -1.0], "low < high"), ("gamma", 0.0, "in (0, 1]"),
 ])
 def test_bad_hyperparameters_name_the_field(field, value, allowed):

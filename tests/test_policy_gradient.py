@@ -64,9 +64,9 @@ def _set_logits(agent, logits):
 
 
 @pytest.mark.parametrize("cls,extra", [
-    (Reinforce, {"normalize": "none", "episodes_per_update": 10**6}),
-    (ActorCritic, {"n_steps": 2, "normalize_advantages": False}),
-    (ActorCritic, {"n_steps": 2, "normalize_advantages": False, "shared_torso": True}),
+    (Reinforce, {"standardize": "none", "episodes_per_update": 10**6}),
+    (ActorCritic, {"rollout_steps": 2, "standardize": "none"}),
+    (ActorCritic, {"rollout_steps": 2, "standardize": "none", "shared_torso": True}),
 ])
 def test_policy_gradient_matches_the_analytic_bandit_gradient(cls, extra):
     """One-step episodes of a softmax bandit. J(θ) = Σ_a π_a r_a has the analytic gradient
@@ -160,7 +160,7 @@ def test_reinforce_bootstraps_truncated_episodes_only():
 def test_actor_critic_bootstraps_truncation_mid_rollout(lam):
     g = 0.9
     agent = make_agent(ActorCritic, Corridor.observation_space, Corridor.action_space,
-                       gamma=g, num_envs=2, n_steps=6, gae_lambda=lam)
+                       gamma=g, num_envs=2, rollout_steps=6, advantage_lambda=lam)
     driver = VecDriver(corridor_envs())
     for _ in range(5):  # 5 of 6 rollout steps: episodes end at t=2, the rollout goes on
         agent.observe(driver.step(agent.act(driver.obs, True)))
@@ -198,15 +198,15 @@ def test_actor_critic_bootstraps_truncation_mid_rollout(lam):
     (Reinforce, "episodes_per_update", 0, ">= 1"),
     (Reinforce, "policy_lr", 0.0, "> 0"),
     (Reinforce, "value_lr", -0.001, "> 0"),
-    (Reinforce, "normalize", "batch", "'advantages'"),
-    (ActorCritic, "gae_lambda", 1.5, "[0, 1]"),
-    (ActorCritic, "gae_lambda", -0.1, "[0, 1]"),
+    (Reinforce, "standardize", "batch", "'advantages'"),
+    (ActorCritic, "advantage_lambda", 1.5, "[0, 1]"),
+    (ActorCritic, "advantage_lambda", -0.1, "[0, 1]"),
     (ActorCritic, "gamma", 0.0, "(0, 1]"),
     (ActorCritic, "num_envs", -1, ">= 1"),
-    (ActorCritic, "n_steps", 0, ">= 1"),
+    (ActorCritic, "rollout_steps", 0, ">= 1"),
     (ActorCritic, "lr", 0.0, "> 0"),
     (ActorCritic, "vector_mode", "threads", "'async'"),
-    (ActorCritic, "squash", "sigmoid", "'tanh'"),
+    (ActorCritic, "gaussian_squash", "sigmoid", "'tanh'"),
 ])
 def test_bad_config_names_the_field_and_the_allowed_values(cls, field, value, allowed):
     with pytest.raises(ConfigError) as err:
@@ -236,10 +236,10 @@ LANDER_BOX = spaces.Box(-1.0, 1.0, (2,), np.float32)  # LunarLanderContinuous-v3
 @pytest.mark.parametrize("cls", AGENTS)
 @pytest.mark.parametrize("action_space,options", [
     (CARTPOLE.action_space, {}),
-    (PENDULUM.action_space, {"squash": "clip"}),
-    (PENDULUM.action_space, {"squash": "tanh", "log_std": "state_dependent"}),
-    (LANDER_BOX, {"squash": "tanh", "log_std_init": 1.5}),
-    (LANDER_BOX, {"squash": "clip", "log_std": "state_dependent", "log_std_init": 1.5}),
+    (PENDULUM.action_space, {"gaussian_squash": "clip"}),
+    (PENDULUM.action_space, {"gaussian_squash": "tanh", "gaussian_std": "state_dependent"}),
+    (LANDER_BOX, {"gaussian_squash": "tanh", "gaussian_log_std_start": 1.5}),
+    (LANDER_BOX, {"gaussian_squash": "clip", "gaussian_std": "state_dependent", "gaussian_log_std_start": 1.5}),
 ])
 def test_actions_have_the_right_shape_dtype_and_bounds(cls, action_space, options):
     obs_space = spaces.Box(-5.0, 5.0, (3,), np.float32)
@@ -279,10 +279,10 @@ def _params(agent):
 
 CASES = [  # (agent, env id, num_envs, config) small enough for several updates in a test
     (Reinforce, "CartPole-v1", 2, {"episodes_per_update": 2}),
-    (Reinforce, "Pendulum-v1", 2, {"episodes_per_update": 1, "squash": "tanh"}),
-    (ActorCritic, "CartPole-v1", 3, {"n_steps": 4, "gae_lambda": 1.0}),
-    (ActorCritic, "Pendulum-v1", 2, {"n_steps": 4, "squash": "tanh", "shared_torso": True,
-                                     "log_std": "state_dependent"}),
+    (Reinforce, "Pendulum-v1", 2, {"episodes_per_update": 1, "gaussian_squash": "tanh"}),
+    (ActorCritic, "CartPole-v1", 3, {"rollout_steps": 4, "advantage_lambda": 1.0}),
+    (ActorCritic, "Pendulum-v1", 2, {"rollout_steps": 4, "gaussian_squash": "tanh", "shared_torso": True,
+                                     "gaussian_std": "state_dependent"}),
 ]
 
 

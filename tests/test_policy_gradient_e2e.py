@@ -48,7 +48,7 @@ def test_short_run_completes_with_the_protocols_records(tmp_path, agent, env):
 
 def test_bad_lambda_is_refused_before_anything_is_written(tmp_path):
     with pytest.raises(ConfigError) as err:
-        run(["agent=actor_critic", "env=cartpole", "agent.gae_lambda=1.5"],
+        run(["agent=actor_critic", "env=cartpole", "agent.advantage_lambda=1.5"],
             results_dir=str(tmp_path))
-    assert err.value.field == "agent.gae_lambda" and "[0, 1]" in str(err.value)
+    assert err.value.field == "agent.advantage_lambda" and "[0, 1]" in str(err.value)
     assert not any(tmp_path.iterdir())

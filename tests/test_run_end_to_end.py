@@ -12,7 +12,7 @@ from seedsweep.runner.launch.api import run
 from seedsweep.runner.commands.cli import main
 
 SHORT = ["agent=dqn", "env=cartpole", "steps=1500", "eval.every=500", "eval.episodes=3",
-         "agent.learning_starts=200", "log.every=250", "--progress=quiet"]
+         "agent.replay_warmup_steps=200", "log.every=250", "--progress=quiet"]
 RUN_KEYS = {"run_id", "agent", "env", "seed", "status", "env_steps", "final_score", "wall_s",
             "started", "finished", "error", "provenance"}
 PROVENANCE_KEYS = {"git_commit", "git_dirty", "python", "torch", "gymnasium", "numpy", "cpu",
@@ -96,7 +96,7 @@ def test_other_seed_gives_other_folder_and_episodes(run_dir, tmp_path):
                                  "cliffwalking"])
 def test_every_shipped_discrete_env_runs(env, tmp_path):
     d = run([f"env={env}", "agent=dqn", "steps=300", "eval.every=300", "eval.episodes=1",
-             "agent.learning_starts=100"], results_dir=str(tmp_path))
+             "agent.replay_warmup_steps=100"], results_dir=str(tmp_path))
     assert json.loads((d / "run.json").read_text())["status"] == "complete"
 
 
@@ -109,6 +109,6 @@ def test_multirun_runs_each_point(tmp_path, capsys):
 
 
 def test_gradient_clipping_can_be_switched_off(tmp_path):
-    d = run(["agent=actor_critic", "agent.max_grad_norm=null", "steps=400", "eval.every=400",
+    d = run(["agent=actor_critic", "agent.grad_clip_norm=null", "steps=400", "eval.every=400",
              "eval.episodes=1"], results_dir=str(tmp_path))
     assert json.loads((d / "run.json").read_text())["status"] == "complete"

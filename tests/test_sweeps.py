@@ -88,9 +88,9 @@ def _kill_after(args, folder: Path, checkpoints: int, sig=signal.SIGKILL) -> int
 
 
 @pytest.mark.parametrize("extra", [
-    ["agent=dqn", "env=cartpole", "agent.learning_starts=200"],  # whole envs pickled
+    ["agent=dqn", "env=cartpole", "agent.replay_warmup_steps=200"],  # whole envs pickled
     # box2d envs do not pickle: snapshots at episode ends (short episodes: frequent ones)
-    ["agent=dqn", "env=lunarlander", "env.max_episode_steps=150", "agent.learning_starts=200"],
+    ["agent=dqn", "env=lunarlander", "env.max_episode_steps=150", "agent.replay_warmup_steps=200"],
     ["agent=actor_critic", "env=cartpole"],  # 8 envs in gymnasium's sync vector env
 ], ids=["pickled-envs", "reset-snapshots", "vector-envs"])
 def test_sigkilled_run_resumes_to_byte_identical_eval_csv(tmp_path, extra):
@@ -112,7 +112,7 @@ def test_sigkilled_run_resumes_to_byte_identical_eval_csv(tmp_path, extra):
 
 def test_sigterm_leaves_the_run_resumable_without_retry(tmp_path):
     """SIGTERM (what SLURM sends before it kills a job) records an interruption, not a failure."""
-    base = ["run", "agent=dqn", "env=cartpole", "agent.learning_starts=200", "steps=2400",
+    base = ["run", "agent=dqn", "env=cartpole", "agent.replay_warmup_steps=200", "steps=2400",
             "eval.every=400", "eval.episodes=2", "checkpoint.every=300", "--progress=quiet",
             f"results_dir={tmp_path}"]
     code = _kill_after(base, tmp_path / "default", 2, sig=signal.SIGTERM)
@@ -125,7 +125,7 @@ def test_sigterm_leaves_the_run_resumable_without_retry(tmp_path):
 
 
 def test_corrupt_checkpoint_falls_back_to_the_previous_one(tmp_path):
-    base = ["run", "agent=dqn", "env=cartpole", "agent.learning_starts=200", "steps=2400",
+    base = ["run", "agent=dqn", "env=cartpole", "agent.replay_warmup_steps=200", "steps=2400",
             "eval.every=400", "eval.episodes=2", "checkpoint.every=300", "--progress=quiet"]
     assert run_cli(*base, f"results_dir={tmp_path}", "sweep=ref").returncode == 0
     folder = tmp_path / "c"

@@ -165,13 +165,13 @@ class PolicyHead(nn.Module):
         self,
         action_space: spaces.Space,
         log_std: LogStdMode = "state_independent",
-        log_std_init: float = 0.0,
+        gaussian_log_std_start: float = 0.0,
         squash: Squash = "clip",
     ):
         super().__init__()
         self.discrete = isinstance(action_space, spaces.Discrete)
         self.squash: Squash = squash
-        self.log_std_init = float(log_std_init)
+        self.gaussian_log_std_start = float(gaussian_log_std_start)
         self.state_dependent = log_std == "state_dependent"
         if self.discrete:
             self.out_dim = int(action_space.n)
@@ -190,7 +190,7 @@ class PolicyHead(nn.Module):
         self.register_buffer("low", torch.from_numpy(low))
         self.register_buffer("high", torch.from_numpy(high))
         if not self.state_dependent:
-            self.log_std = nn.Parameter(torch.full((self.action_dim,), self.log_std_init))
+            self.log_std = nn.Parameter(torch.full((self.action_dim,), self.gaussian_log_std_start))
 
     def forward(self, out: torch.Tensor) -> Distribution:
         if self.discrete:
@@ -198,7 +198,7 @@ class PolicyHead(nn.Module):
         d = self.action_dim
         mean = out[..., :d]
         if self.state_dependent:
-            log_std = self.log_std_init + out[..., d:]
+            log_std = self.gaussian_log_std_start + out[..., d:]
         else:
             log_std = self.log_std.expand_as(mean)
         log_std = log_std.clamp(LOG_STD_MIN, LOG_STD_MAX)
@@ -284,16 +284,16 @@ class PolicyNetworkConfig:
     """Network, policy-head and clipping settings shared by the policy-gradient agents'
     Config dataclasses (which inherit these fields and call :meth:`check_network`)."""
 
-    max_grad_norm: float | None = None
+    grad_clip_norm: float | None = None
     hidden: list[int] = field(default_factory=lambda: [64, 64])
     activation: Literal["tanh", "relu"] = "tanh"
     init: Literal["orthogonal", "default"] = "orthogonal"
-    log_std: LogStdMode = "state_independent"
-    log_std_init: float = 0.0
-    squash: Squash = "clip"
+    gaussian_std: LogStdMode = "state_independent"
+    gaussian_log_std_start: float = 0.0
+    gaussian_squash: Squash = "clip"
 
     def check_network(self) -> None:
-        require("max_grad_norm", self.max_grad_norm,
-                self.max_grad_norm is None or self.max_grad_norm > 0, "> 0 or null")
+        require("grad_clip_norm", self.grad_clip_norm,
+                self.grad_clip_norm is None or self.grad_clip_norm > 0, "> 0 or null")
         require("hidden", self.hidden, all(h >= 1 for h in self.hidden),
                 "a list of layer widths >= 1")

@@ -121,9 +121,9 @@ class TileSarsa(Agent):
         tiles: int = 8  # tiles per dimension across the tiled range
         max_features: int = 262_144  # per action; see fit_tilings for high-dim observations
         unbounded_range: list[float] = field(default_factory=lambda: [-3.0, 3.0])
-        eps_start: float = 0.1
-        eps_end: float = 0.1
-        eps_decay_steps: int = 0
+        epsilon_start: float = 0.1
+        epsilon_end: float = 0.1
+        epsilon_decay_steps: int = 0
         init_value: float = 0.0  # initial q for every (s, a); > max return is optimistic
 
         def __post_init__(self) -> None:
@@ -136,10 +136,10 @@ class TileSarsa(Agent):
             r = self.unbounded_range
             require("unbounded_range", r, len(r) == 2 and r[0] < r[1],
                     "a list [low, high] with low < high")
-            for name in ("eps_start", "eps_end"):
+            for name in ("epsilon_start", "epsilon_end"):
                 value = getattr(self, name)
                 require(name, value, 0.0 <= value <= 1.0, "in [0, 1]")
-            require("eps_decay_steps", self.eps_decay_steps, self.eps_decay_steps >= 0, ">= 0")
+            require("epsilon_decay_steps", self.epsilon_decay_steps, self.epsilon_decay_steps >= 0, ">= 0")
 
     def __init__(self, observation_space, action_space, config: Config, seed: int):
         super().__init__(observation_space, action_space, config, seed)
@@ -156,7 +156,7 @@ class TileSarsa(Agent):
         self.weights = np.full((self.n_actions, self.coder.num_features),
                                c.init_value / self.coder.num_tilings)
         self.step_size = c.alpha / self.coder.num_tilings
-        self.epsilon = LinearSchedule(c.eps_start, c.eps_end, c.eps_decay_steps)
+        self.epsilon = LinearSchedule(c.epsilon_start, c.epsilon_end, c.epsilon_decay_steps)
         self.rng = np.random.default_rng(seed)
         self.env_steps = 0
 

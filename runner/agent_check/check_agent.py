@@ -75,7 +75,7 @@ steps=N    act/observe calls per loop (default {DEFAULT_STEPS}; at least {MIN_ST
 checks, one line each per env: spaces, actions, determinism, round_trip, global_rng,
 learn_loop; once per agent: contract_version, config, declares, refuses.
 Learning checks only mean something if the agent learns within `steps`: lower e.g.
-agent.learning_starts for agents that wait before their first update."""
+agent.replay_warmup_steps for agents that wait before their first update."""
 
 
 # -- results ------------------------------------------------------------------------------
