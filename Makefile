@@ -25,7 +25,7 @@ test: $(STAMP)
 	$(BIN)/python -m pytest
 
 lint: $(STAMP)
-	$(BIN)/ruff check runner agents envs tests benchmarks
+	$(BIN)/ruff check runner agents envs configs tests benchmarks examples
 
 clean-venv:
 	rm -rf $(VENV)

@@ -1,6 +1,6 @@
 """The agent contract: the only thing the runner knows about an agent.
 
-An agent is a class with a nested ``Config`` dataclass (its hyperparameters) and five
+An agent is a class with a nested ``Config`` dataclass (its hyperparameters) and four
 methods. The runner owns the environments, the budget, the evaluation protocol and the
 records; the agent only maps observations to actions and learns from the transitions it
 is shown. Everything is batched over ``num_envs`` parallel environments (``num_envs`` is
@@ -44,21 +44,18 @@ from __future__ import annotations
 
 import abc
 import dataclasses
+import typing
 from dataclasses import dataclass
 from typing import Any, ClassVar
 
 import numpy as np
 from gymnasium import spaces
+from seedsweep.configs.checks import ConfigError, check_type, require, unknown_key
+
+__all__ = ["CONTRACT_VERSION", "Agent", "ConfigError", "Step", "build_config", "check_type",
+           "require"]
 
 CONTRACT_VERSION = 1
-
-
-class ConfigError(ValueError):
-    """A bad setting: names the field and what is allowed. The CLI prints it on one line."""
-
-    def __init__(self, field: str, message: str):
-        super().__init__(f"{field}: {message}")
-        self.field = field
 
 
 @dataclass(slots=True)
@@ -152,9 +149,7 @@ def build_config(agent_cls: type[Agent], values: dict[str, Any], prefix: str = "
     fields = {f.name: f for f in dataclasses.fields(agent_cls.Config)}
     unknown = sorted(set(values) - set(fields))
     if unknown:
-        raise ConfigError(
-            f"{prefix}.{unknown[0]}", f"unknown option (allowed: {', '.join(sorted(fields))})"
-        )
+        raise unknown_key(f"{prefix}.{unknown[0]}", unknown[0], fields)
     hints = _resolved_hints(agent_cls.Config)
     checked = {}
     for name, value in values.items():
@@ -168,61 +163,4 @@ def build_config(agent_cls: type[Agent], values: dict[str, Any], prefix: str = "
 
 
 def _resolved_hints(cls: type) -> dict[str, Any]:
-    import typing
-
     return typing.get_type_hints(cls)
-
-
-def check_type(field: str, value: Any, hint: Any) -> Any:
-    """Check ``value`` against a simple type hint (bool, int, float, str, list[...],
-    Literal[...], Optional); ints are accepted where floats are expected."""
-    import types
-    import typing
-
-    origin = typing.get_origin(hint)
-    args = typing.get_args(hint)
-    if origin in (typing.Union, types.UnionType):
-        if value is None and type(None) in args:
-            return None
-        inner = [a for a in args if a is not type(None)]
-        errors = []
-        for a in inner:
-            try:
-                return check_type(field, value, a)
-            except ConfigError as err:
-                errors.append(err)
-        raise errors[0]
-    if origin is typing.Literal:
-        if value not in args:
-            raise ConfigError(field, f"got {value!r} (allowed: {', '.join(map(repr, args))})")
-        return value
-    if origin in (list, tuple):
-        if not isinstance(value, (list, tuple)):
-            raise ConfigError(field, f"expected a list, got {value!r}")
-        item = args[0] if args else Any
-        return [check_type(f"{field}[{i}]", v, item) for i, v in enumerate(value)]
-    if hint is Any:
-        return value
-    if hint is bool:
-        if not isinstance(value, bool):
-            raise ConfigError(field, f"expected true or false, got {value!r}")
-        return value
-    if hint is int:
-        if isinstance(value, bool) or not isinstance(value, int):
-            raise ConfigError(field, f"expected an integer, got {value!r}")
-        return value
-    if hint is float:
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise ConfigError(field, f"expected a number, got {value!r}")
-        return float(value)
-    if hint is str:
-        if not isinstance(value, str):
-            raise ConfigError(field, f"expected a string, got {value!r}")
-        return value
-    return value
-
-
-def require(field: str, value: Any, ok: bool, allowed: str) -> None:
-    """Range check for a Config ``__post_init__``: ``require("lr", lr, lr > 0, "> 0")``."""
-    if not ok:
-        raise ConfigError(field, f"must be {allowed} (got {value!r})")

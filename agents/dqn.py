@@ -14,7 +14,6 @@ from typing import Any
 import numpy as np
 import torch
 from gymnasium import spaces
-
 from seedsweep.agents.base import Agent, Step, require
 from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp
 from seedsweep.agents.common.optim import FlatParameters

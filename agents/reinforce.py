@@ -26,7 +26,6 @@ from typing import Any, Literal
 import numpy as np
 import torch
 from gymnasium import spaces
-
 from seedsweep.agents.base import Agent, Step, require
 from seedsweep.agents.common.distributions import (
     POLICY_OUT_GAIN,

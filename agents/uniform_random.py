@@ -8,7 +8,6 @@ from typing import Any
 import numpy as np
 import torch
 from gymnasium import spaces
-
 from seedsweep.agents.base import Agent, Step
 
 

@@ -87,7 +87,6 @@ def minimal_loop(job: dict) -> tuple[float, list[tuple[int, float]]]:
     import importlib
 
     import yaml
-
     from seedsweep.agents.base import Step, build_config
     from seedsweep.envs.build import make_eval_env, make_train_envs, parse_env_config
     from seedsweep.runner.execution.protocol import evaluate

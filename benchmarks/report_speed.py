@@ -83,12 +83,14 @@ def main() -> None:
     sweep = write_sweep(root, args.seeds)
     print(f"wrote {len(AGENTS) * len(ENVS) * args.seeds} runs in {time.perf_counter() - t0:.1f} s")
     from seedsweep.runner.analysis import report
+    from seedsweep.runner.commands.report import parse_options
+    from seedsweep.runner.present import report_files
 
-    opts = report.parse_options([str(sweep), "--quiet"])
+    opts = parse_options([str(sweep), "--quiet"])
     t0 = time.perf_counter()
     data = report.compute_report(opts)
     t1 = time.perf_counter()
-    target = report.write_report(data)
+    target = report_files.write_report(data)
     t2 = time.perf_counter()
     n_compared = sum(data.n_runs.values())
     print(f"compared run scores: {n_compared} ({len(data.agents)} agents x {len(data.envs)} envs)")

@@ -24,7 +24,6 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import yardstick_dqn  # noqa: E402
-
 from seedsweep.runner.launch.api import run  # noqa: E402
 
 

@@ -19,7 +19,8 @@ ROOT = Path(__file__).resolve().parent.parent
 
 def sweep_wall_s(workers: int, seeds: int, steps: int) -> float:
     with tempfile.TemporaryDirectory() as tmp:
-        cmd = [sys.executable, "-m", "seedsweep.runner.commands.cli", "run", "-m", "agent=dqn", "env=cartpole",
+        cmd = [sys.executable, "-m", "seedsweep.runner.commands.main", "run", "-m", "agent=dqn",
+               "env=cartpole",
                f"seed=range({seeds})", f"steps={steps}", "eval.every=5000", "eval.episodes=5",
                f"workers={workers}", f"results_dir={tmp}", "sweep=scaling", "--no-estimate",
                "--progress=quiet"]

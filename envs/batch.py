@@ -21,7 +21,6 @@ import gymnasium as gym
 import numpy as np
 import torch
 from gymnasium.vector import AsyncVectorEnv, AutoresetMode, SyncVectorEnv
-
 from seedsweep.envs.normalize import ObsNormalizer
 
 RewardTransform = tuple[str, dict[str, Any]]

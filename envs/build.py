@@ -3,16 +3,19 @@
 from __future__ import annotations
 
 import importlib
+import logging
 import warnings
 from dataclasses import dataclass, field
 from typing import Any
 
 import gymnasium as gym
-
-from seedsweep.agents.base import ConfigError, check_type
+from gymnasium.utils.env_checker import check_env
+from seedsweep.configs.checks import ConfigError, check_type
 from seedsweep.envs.batch import TrainEnvs
 from seedsweep.envs.normalize import ObsNormalizer
 from seedsweep.envs.wrappers import WRAPPERS, parse_wrappers
+
+logger = logging.getLogger(__name__)
 
 ENV_KEYS = {"name", "id", "kwargs", "max_episode_steps", "reference", "wrappers"}
 
@@ -143,8 +146,6 @@ def _check_once(spec: EnvSpec, env: gym.Env) -> None:
     if spec.id in _CHECKED or entry_name.startswith("gymnasium.envs"):
         return
     _CHECKED.add(spec.id)
-    from gymnasium.utils.env_checker import check_env
-
     probe = gym.make(spec.make_id, disable_env_checker=True, **spec.kwargs)
     try:
         with warnings.catch_warnings(record=True) as caught:
@@ -156,7 +157,7 @@ def _check_once(spec: EnvSpec, env: gym.Env) -> None:
     finally:
         probe.close()
     for w in caught:
-        print(f"seedsweep: warning: env checker on {spec.id}: {str(w.message).strip()}")
+        logger.warning("env checker on %s: %s", spec.id, str(w.message).strip())
 
 
 def _has_time_limit(env: gym.Env) -> bool:

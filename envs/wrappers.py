@@ -18,8 +18,7 @@ from typing import Any
 
 import gymnasium as gym
 from gymnasium import wrappers as gw
-
-from seedsweep.agents.base import ConfigError, check_type
+from seedsweep.configs.checks import ConfigError, check_type
 
 
 @dataclass(frozen=True)

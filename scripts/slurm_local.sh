@@ -2,7 +2,7 @@
 # Start a throwaway one-node SLURM (installs Debian's packages if missing; needs root),
 # run the given command against it, then stop everything.
 #   scripts/slurm_local.sh sinfo
-#   scripts/slurm_local.sh .venv/bin/python -m seedsweep.runner.commands.cli ...   # a sweep via submitit
+#   scripts/slurm_local.sh .venv/bin/python -m seedsweep.runner.commands.main ...   # a sweep via submitit
 #   scripts/slurm_local.sh                                      # stay up until Ctrl-C
 set -euo pipefail
 cd "$(dirname "$0")/.."

@@ -12,7 +12,6 @@ from typing import Any
 import numpy as np
 import torch
 from gymnasium import spaces
-
 from seedsweep.agents.base import Agent, Step
 
 LEAK_FLOATS = 1250  # float64s kept per step: 10 kB, i.e. 1 MB per 100 steps

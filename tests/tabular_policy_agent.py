@@ -11,7 +11,6 @@ from typing import Any
 
 import numpy as np
 from gymnasium import spaces
-
 from seedsweep.agents.base import Agent, Step
 
 

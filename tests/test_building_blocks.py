@@ -5,7 +5,6 @@ import copy
 import numpy as np
 import pytest
 import torch
-
 from seedsweep.agents.common.networks import NumpyMLP, mlp
 from seedsweep.agents.common.optim import FlatParameters
 from seedsweep.agents.common.replay import ReplayBuffer
@@ -94,7 +93,7 @@ def test_flat_parameters_match_per_parameter_clipping_and_adam():
     ref_opt = torch.optim.Adam(ref.parameters(), lr=1e-2)
     x = torch.randn(32, 3, generator=gen)
     for _ in range(3):
-        flat.zero_grad()
+        flat.grad.zero_()
         (net(x) ** 2).sum().backward()
         norm = flat.clip_grad_norm_(0.5)
         ref_opt.zero_grad()
@@ -130,7 +129,6 @@ def test_numpy_backward_matches_torch_autograd(activation):
 def test_dqn_update_gradient_is_the_huber_loss_gradient():
     """The hand-written update equals autograd on torch's smooth_l1_loss (beta 1, mean)."""
     from gymnasium import spaces
-
     from seedsweep.agents.dqn import DQN
 
     agent = DQN(spaces.Box(-1, 1, (4,), np.float32), spaces.Discrete(2),

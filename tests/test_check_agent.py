@@ -16,10 +16,12 @@ import numpy as np
 import pytest
 import torch
 from gymnasium import spaces
-
 from seedsweep.agents.base import ConfigError
-from seedsweep.runner.commands import cli
-from seedsweep.runner.agent_check.check_agent import action_problem, check_agent_main, first_difference
+from seedsweep.runner.agent_check.inspect import action_problem
+from seedsweep.runner.commands import check_agent
+from seedsweep.runner.commands import main as cli
+from seedsweep.runner.commands.check_agent import main as check_agent_main
+from seedsweep.runner.execution.state import first_difference
 
 BREAKERS = "tests.contract_breakers:"
 PER_ENV = ("spaces", "actions", "determinism", "round_trip", "global_rng", "learn_loop")
@@ -184,8 +186,6 @@ BAD_INPUT = [
 
 @pytest.mark.parametrize("argv,message", BAD_INPUT)
 def test_bad_input_is_one_line_and_exit_2(argv, message, monkeypatch, capsys):
-    monkeypatch.setitem(cli.COMMANDS, "check-agent",
-                        ("seedsweep.runner.agent_check.check_agent", "check_agent_main", "check an agent"))
     code = cli.main(["check-agent", *argv])
     captured = capsys.readouterr()
     assert code == 2
@@ -196,7 +196,7 @@ def test_bad_input_is_one_line_and_exit_2(argv, message, monkeypatch, capsys):
 
 def test_bad_input_raises_config_error_naming_the_field():
     with pytest.raises(ConfigError) as err:
-        check_agent_main(["random", "env=nosuch"])
+        check_agent.check(["random", "env=nosuch"])
     assert err.value.field == "env"
 
 
@@ -210,7 +210,6 @@ def test_help(capsys):
 def test_agent_yaml_from_an_extra_config_dir(capsys):
     from pathlib import Path
 
-    from seedsweep.runner.agent_check.check_agent import check_agent_main
 
     examples = Path(__file__).resolve().parent.parent / "examples" / "configs"
     assert check_agent_main(["tile_sarsa", "--config-dir", str(examples), "env=cartpole",

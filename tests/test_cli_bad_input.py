@@ -1,8 +1,7 @@
 """Bad input: one line naming the field and what is allowed, exit 2, no run folder."""
 
 import pytest
-
-from seedsweep.runner.commands.cli import main
+from seedsweep.runner.commands.main import main
 
 CASES = [
     (["agent=nosuch"], "agent: unknown option 'nosuch' (allowed: "),
@@ -31,8 +30,10 @@ CASES = [
     (["suite=classic_control"], "several values given; add -m"),
     (["suite=nosuch"], "suite: unknown suite 'nosuch' (allowed: "),
     # policy-gradient agents
-    (["agent=actor_critic", "agent.advantage_lambda=1.5"], "agent.advantage_lambda: must be in [0, 1]"),
-    (["agent=actor_critic", "agent.advantage_lambda=-0.1"], "agent.advantage_lambda: must be in [0, 1]"),
+    (["agent=actor_critic", "agent.advantage_lambda=1.5"],
+     "agent.advantage_lambda: must be in [0, 1]"),
+    (["agent=actor_critic", "agent.advantage_lambda=-0.1"],
+     "agent.advantage_lambda: must be in [0, 1]"),
     (["agent=actor_critic", "agent.num_envs=0"], "agent.num_envs: must be >= 1"),
     (["agent=reinforce", "agent.episodes_per_update=0"], "agent.episodes_per_update: must be >= 1"),
     (["agent=reinforce", "env.id=tests.toy_envs:MultiDiscreteActions", "env.max_episode_steps=10"],

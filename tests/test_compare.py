@@ -12,11 +12,11 @@ import numpy as np
 import pytest
 import yaml
 from scipy import stats as sps
-
 from seedsweep.runner.analysis import compare
-from seedsweep.runner.analysis.compare import compare_main, compare_pair, fmt_interval, iqm_difference, verdict
-from seedsweep.runner.analysis.report import report_main
+from seedsweep.runner.analysis.compare import compare_pair, fmt_interval, iqm_difference, verdict
 from seedsweep.runner.analysis.stats import Interval
+from seedsweep.runner.commands.compare import main as compare_main
+from seedsweep.runner.commands.report import main as report_main
 
 ENVS = {
     "cartpole": {"name": "cartpole", "id": "CartPole-v1", "kwargs": {},

@@ -7,14 +7,6 @@ import pytest
 import torch
 from gymnasium import spaces
 from scipy import integrate, stats
-from torch.distributions import (
-    AffineTransform,
-    Independent,
-    Normal,
-    TanhTransform,
-    TransformedDistribution,
-)
-
 from seedsweep.agents.common.distributions import (
     LOG_STD_MAX,
     ActionSampler,
@@ -22,6 +14,13 @@ from seedsweep.agents.common.distributions import (
     DiagGaussian,
     PolicyHead,
     select_actions,
+)
+from torch.distributions import (
+    AffineTransform,
+    Independent,
+    Normal,
+    TanhTransform,
+    TransformedDistribution,
 )
 
 torch.set_num_threads(1)

@@ -3,7 +3,6 @@
 import gymnasium as gym
 import numpy as np
 import pytest
-
 from seedsweep.agents.base import ConfigError
 from seedsweep.envs.build import make_eval_env, make_train_envs, parse_env_config
 

@@ -19,11 +19,10 @@ import numpy as np
 import pytest
 import torch
 from gymnasium import spaces
-
 from seedsweep.agents.base import ConfigError, Step, build_config
-from seedsweep.runner.launch import api
 from seedsweep.runner.execution.config import compose
-from seedsweep.runner.execution.run import load_agent_class, prepare
+from seedsweep.runner.execution.prepare import load_agent_class, prepare
+from seedsweep.runner.launch import api
 
 ROOT = Path(__file__).resolve().parent.parent
 AGENT_FILE = ROOT / "examples" / "tile_sarsa" / "agent.py"

@@ -5,7 +5,6 @@ from pathlib import Path
 import gymnasium as gym
 import numpy as np
 import pytest
-
 from seedsweep.runner.analysis import oracle
 
 UP, RIGHT, DOWN, LEFT = range(4)
@@ -128,8 +127,8 @@ def test_finite_horizon_optimum_bounds_every_stationary_policy():
 
 
 def test_optimal_frozenlake_policy_through_the_real_protocol_matches_exact_value(tmp_path):
+    from seedsweep.runner.analysis.runs import read_eval_csv
     from seedsweep.runner.launch import api
-    from seedsweep.runner.analysis.scores import read_eval_csv
 
     env = gym.make("FrozenLake-v1", map_name="4x4", is_slippery=True)  # configs/env/frozenlake
     mdp = oracle.from_env(env)

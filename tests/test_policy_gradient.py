@@ -12,7 +12,6 @@ import torch
 import yaml
 from gymnasium import spaces
 from gymnasium.vector import AutoresetMode, SyncVectorEnv
-
 from seedsweep.agents.actor_critic import ActorCritic
 from seedsweep.agents.base import ConfigError, Step, build_config
 from seedsweep.agents.reinforce import Reinforce
@@ -239,7 +238,8 @@ LANDER_BOX = spaces.Box(-1.0, 1.0, (2,), np.float32)  # LunarLanderContinuous-v3
     (PENDULUM.action_space, {"gaussian_squash": "clip"}),
     (PENDULUM.action_space, {"gaussian_squash": "tanh", "gaussian_std": "state_dependent"}),
     (LANDER_BOX, {"gaussian_squash": "tanh", "gaussian_log_std_start": 1.5}),
-    (LANDER_BOX, {"gaussian_squash": "clip", "gaussian_std": "state_dependent", "gaussian_log_std_start": 1.5}),
+    (LANDER_BOX, {"gaussian_squash": "clip", "gaussian_std": "state_dependent",
+                  "gaussian_log_std_start": 1.5}),
 ])
 def test_actions_have_the_right_shape_dtype_and_bounds(cls, action_space, options):
     obs_space = spaces.Box(-5.0, 5.0, (3,), np.float32)
@@ -281,8 +281,8 @@ CASES = [  # (agent, env id, num_envs, config) small enough for several updates 
     (Reinforce, "CartPole-v1", 2, {"episodes_per_update": 2}),
     (Reinforce, "Pendulum-v1", 2, {"episodes_per_update": 1, "gaussian_squash": "tanh"}),
     (ActorCritic, "CartPole-v1", 3, {"rollout_steps": 4, "advantage_lambda": 1.0}),
-    (ActorCritic, "Pendulum-v1", 2, {"rollout_steps": 4, "gaussian_squash": "tanh", "shared_torso": True,
-                                     "gaussian_std": "state_dependent"}),
+    (ActorCritic, "Pendulum-v1", 2, {"rollout_steps": 4, "gaussian_squash": "tanh",
+                                     "shared_torso": True, "gaussian_std": "state_dependent"}),
 ]
 
 

@@ -8,7 +8,6 @@ import json
 import gymnasium as gym
 import pytest
 import torch
-
 from seedsweep.agents.actor_critic import ActorCritic
 from seedsweep.agents.base import ConfigError, build_config
 from seedsweep.agents.reinforce import Reinforce

@@ -10,9 +10,9 @@ import json
 import numpy as np
 import pytest
 from scipy import stats as sps
-
-from seedsweep.runner.analysis.compare import plan_seeds_main
 from seedsweep.runner.analysis.power import bootstrap_power, seeds_needed, shift_to_difference
+from seedsweep.runner.commands.plan_seeds import main as plan_seeds_main
+
 from tests.test_compare import make_sweep, snapshot, write_run
 
 

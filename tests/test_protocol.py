@@ -4,10 +4,15 @@ import math
 
 import numpy as np
 import pytest
-
 from seedsweep.agents.uniform_random import UniformRandom
-from seedsweep.runner.execution.protocol import discounted_return, evaluate, mean_and_stderr, run_episode
+from seedsweep.runner.execution.protocol import (
+    discounted_return,
+    evaluate,
+    mean_and_stderr,
+    run_episode,
+)
 from seedsweep.runner.execution.seeding import derive_seeds
+
 from tests.toy_envs import ConstantReward
 
 

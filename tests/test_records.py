@@ -3,7 +3,6 @@
 import os
 
 import pytest
-
 from seedsweep.runner.execution import records
 
 

@@ -12,9 +12,11 @@ import numpy as np
 import pytest
 import yaml
 from scipy import stats as sps
-
 from seedsweep.runner.analysis import oracle
-from seedsweep.runner.analysis.report import build_parser, compute_report, report_main
+from seedsweep.runner.analysis.report import compute_report
+from seedsweep.runner.commands import options
+from seedsweep.runner.commands.report import build_parser
+from seedsweep.runner.commands.report import main as report_main
 
 ENVS = {
     "frozenlake": {"name": "frozenlake", "id": "FrozenLake-v1",
@@ -317,20 +319,24 @@ def test_env_without_reference_is_refused_then_user_reference_is_used(tmp_path, 
     assert ref["Pendulum-v1"]["source"] == "user" and ref["Pendulum-v1"]["reference"] == -150.0
 
 
-def test_random_score_is_measured_once_into_the_cache(tmp_path, capsys):
-    """No random runs in the sweep: the random agent is run through runner.api."""
-    from seedsweep.runner.launch import api
+def test_random_score_is_measured_once_into_the_cache(tmp_path, capsys, monkeypatch):
+    """No random runs in the sweep: the random agent is run through the launch layer."""
+    from seedsweep.runner.launch import random_scores
 
     sweep = make_sweep(tmp_path, envs=("frozenlake",), random=False)
     calls = []
 
+    real_run = random_scores.api.run
+
     def counting_run(overrides, **kwargs):
         calls.append(list(overrides))
-        return api.run(overrides, **kwargs)
+        return real_run(overrides, **kwargs)
+
+    monkeypatch.setattr(random_scores.api, "run", counting_run)
 
     opts = build_parser().parse_args([str(sweep), *FAST, "--random-episodes", "30"])
-    first = compute_report(opts, runner=counting_run)
-    second = compute_report(opts, runner=counting_run)
+    first = options.with_random_scores(lambda: compute_report(opts))
+    second = options.with_random_scores(lambda: compute_report(opts))
     assert len(calls) == 1
     ref = first.references["FrozenLake-v1"]
     assert ref.random_source == "cache" and ref.random_episodes == 30

@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-
 from seedsweep.agents.common.returns import discounted_returns, gae, nstep_returns, td_errors
 
 

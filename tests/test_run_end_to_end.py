@@ -7,9 +7,8 @@ from pathlib import Path
 import pytest
 import torch
 import yaml
-
+from seedsweep.runner.commands.main import main
 from seedsweep.runner.launch.api import run
-from seedsweep.runner.commands.cli import main
 
 SHORT = ["agent=dqn", "env=cartpole", "steps=1500", "eval.every=500", "eval.episodes=3",
          "agent.replay_warmup_steps=200", "log.every=250", "--progress=quiet"]

@@ -190,7 +190,8 @@ def test_seedsweep_sweep_runs_on_local_slurm(local_slurm: LocalSlurm, tmp_path: 
     params = local_slurm.submitit_params()
     root = Path(__file__).resolve().parent.parent
     command = [
-        sys.executable, "-m", "seedsweep.runner.commands.cli", "run", "-m", "agent=random", "env=cartpole",
+        sys.executable, "-m", "seedsweep.runner.commands.main", "run", "-m", "agent=random",
+        "env=cartpole",
         "seed=0,1,2", "steps=400", "eval.every=200", "eval.episodes=2",
         f"results_dir={tmp_path}", "sweep=cluster", "--launcher", "slurm",
         "--slurm", f"partition={params['slurm_partition']}",

@@ -7,7 +7,6 @@ import time
 import numpy as np
 import pytest
 from scipy import stats as sps
-
 from seedsweep.runner.analysis import stats
 
 

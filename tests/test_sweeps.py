@@ -9,16 +9,15 @@ import time
 from pathlib import Path
 
 import pytest
-
-from seedsweep.runner.commands.cli import main
-from seedsweep.runner.launch.sweep import plan
+from seedsweep.runner.commands.main import main
+from seedsweep.runner.launch.plan import plan
 
 ROOT = Path(__file__).resolve().parent.parent
 FAST = ["steps=600", "eval.every=300", "eval.episodes=2", "--no-estimate", "--progress=lines"]
 
 
 def run_cli(*args: str, cwd: Path = ROOT) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "seedsweep.runner.commands.cli", *args], cwd=cwd,
+    return subprocess.run([sys.executable, "-m", "seedsweep.runner.commands.main", *args], cwd=cwd,
                           capture_output=True, text=True, timeout=600)
 
 
@@ -73,8 +72,8 @@ def test_failures_are_isolated_and_retry_failed_reruns_only_them(tmp_path, capsy
 
 def _kill_after(args, folder: Path, checkpoints: int, sig=signal.SIGKILL) -> int:
     """Start a real run process and kill it once it has written `checkpoints` checkpoints."""
-    proc = subprocess.Popen([sys.executable, "-m", "seedsweep.runner.commands.cli", *args], cwd=ROOT,
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    proc = subprocess.Popen([sys.executable, "-m", "seedsweep.runner.commands.main", *args],
+                            cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     deadline = time.monotonic() + 240
     seen = set()
     while time.monotonic() < deadline and proc.poll() is None:
@@ -142,7 +141,8 @@ def test_corrupt_checkpoint_falls_back_to_the_previous_one(tmp_path):
 
 def test_lock_keeps_a_run_single_and_a_dead_holder_releases_it(tmp_path):
     from seedsweep.runner.execution.config import compose
-    from seedsweep.runner.execution.run import RunBusy, execute, prepare
+    from seedsweep.runner.execution.prepare import prepare
+    from seedsweep.runner.execution.run import RunBusy, execute
 
     p = prepare(compose(["agent=random", "steps=200", "eval.every=100", "eval.episodes=1",
                          f"results_dir={tmp_path}"]))
@@ -153,10 +153,10 @@ def test_lock_keeps_a_run_single_and_a_dead_holder_releases_it(tmp_path):
         "time.sleep(600)")], stdout=subprocess.PIPE, text=True)
     assert holder.stdout.readline().strip() == "held"
     with pytest.raises(RunBusy):
-        execute(p, progress="quiet")
+        execute(p)
     holder.send_signal(signal.SIGKILL)  # a crash: nobody releases the lock by hand
     holder.wait()
-    assert execute(p, progress="quiet")["status"] == "complete"
+    assert execute(p)["status"] == "complete"
 
 
 def test_status_reads_the_folder(tmp_path, capsys):
@@ -177,7 +177,7 @@ def test_status_reads_the_folder(tmp_path, capsys):
     (["seed=range(0)"], "seed: the sweep over this key is empty"),
     (["seed=0,0"], "seed: two sweep points give the same run"),
     (["seed=0,1", "workers=0"], "workers: must be >= 1"),
-    (["--sweep-file", "nosuch"], "--sweep-file: no sweep file 'nosuch'"),
+    (["--plan", "nosuch"], "--plan: no plan 'nosuch'"),
 ])
 def test_bad_sweep_input(args, message, tmp_path, capsys):
     assert main(["run", "-m", f"results_dir={tmp_path}", *FAST, *args]) == 2
@@ -199,12 +199,12 @@ def test_folder_of_another_code_version_is_refused(tmp_path, capsys):
     assert main([*args, "--allow-mixed-code"]) == 0
 
 
-def test_sweep_file_runs_its_plan(tmp_path, capsys):
+def test_plan_file_runs_its_plan(tmp_path, capsys):
     plan_file = tmp_path / "tiny.yaml"
     plan_file.write_text("name: tiny\nversion: 2\nagents: [random]\nenvs: [cartpole, acrobot]\n"
                          "seeds: range(2)\nsteps: 400\n"
                          "overrides: [eval.every=200, eval.episodes=1]\n")
-    assert main(["run", "--sweep-file", str(plan_file), f"results_dir={tmp_path}", "workers=2",
+    assert main(["run", "--plan", str(plan_file), f"results_dir={tmp_path}", "workers=2",
                  "--no-estimate", "--progress=quiet"]) == 0
     assert len(statuses(tmp_path / "tiny-v2")) == 4
 

@@ -23,9 +23,8 @@ from typing import Literal
 import numpy as np
 import torch
 from gymnasium import spaces
+from seedsweep.configs.checks import require
 from torch import nn
-
-from seedsweep.agents.base import require
 
 LOG_STD_MIN, LOG_STD_MAX = -5.0, 2.0  # clamp of the log-std (common practice, no source)
 _HALF_LOG_2PI = 0.5 * math.log(2.0 * math.pi)

@@ -54,9 +54,6 @@ class FlatParameters:
         self.param = torch.nn.Parameter(self.data)
         self.param.grad = self.grad
 
-    def zero_grad(self) -> None:
-        self.grad.zero_()
-
     def clip_grad_norm_(self, max_norm: float | None) -> torch.Tensor:
         """Scale gradients so their global L2 norm is at most ``max_norm``; returns the
         norm before clipping. Same rule as ``torch.nn.utils.clip_grad_norm_``."""

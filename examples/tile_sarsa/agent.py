@@ -24,7 +24,6 @@ from typing import Any
 import numpy as np
 import torch
 from gymnasium import spaces
-
 from seedsweep.agents.base import Agent, Step, require
 from seedsweep.agents.common.schedules import LinearSchedule
 
@@ -139,7 +138,8 @@ class TileSarsa(Agent):
             for name in ("epsilon_start", "epsilon_end"):
                 value = getattr(self, name)
                 require(name, value, 0.0 <= value <= 1.0, "in [0, 1]")
-            require("epsilon_decay_steps", self.epsilon_decay_steps, self.epsilon_decay_steps >= 0, ">= 0")
+            require("epsilon_decay_steps", self.epsilon_decay_steps,
+                    self.epsilon_decay_steps >= 0, ">= 0")
 
     def __init__(self, observation_space, action_space, config: Config, seed: int):
         super().__init__(observation_space, action_space, config, seed)

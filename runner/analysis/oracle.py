@@ -25,6 +25,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from gymnasium import spaces
 
 
 @dataclass(frozen=True)
@@ -40,11 +41,6 @@ class TabularMDP:
     def continuation(self) -> np.ndarray:
         """(S, A, S'): probability of moving to s' with the episode going on."""
         return self.P - self.done
-
-    @property
-    def terminal_states(self) -> np.ndarray:
-        """(S,) bool: states where every action ends the episode at once (holes, goals)."""
-        return np.isclose(self.done.sum(axis=2), 1.0).all(axis=1)
 
     @property
     def n_states(self) -> int:
@@ -239,8 +235,6 @@ def optimal_start_value(
 
 def has_transition_table(env: Any) -> bool:
     """Whether ``env`` is tabular with a toy-text ``P`` table the oracle can read."""
-    from gymnasium import spaces
-
     base = env.unwrapped
     return (
         isinstance(getattr(base, "P", None), dict)

@@ -22,10 +22,12 @@ Everything is vectorised over bootstrap resamples; randomness comes only from th
 
 from __future__ import annotations
 
+import zlib
 from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import stats as sps
 
 Strata = Sequence[np.ndarray]  # one 1-D array of run scores per env
 
@@ -42,6 +44,13 @@ class Interval:
 
     def as_dict(self) -> dict[str, float]:
         return {"point": self.point, "low": self.low, "high": self.high}
+
+
+def keyed_rng(seed: int, purpose: str, *names: str) -> np.random.Generator:
+    """A generator per (seed, purpose, names): adding an agent to a report does not change
+    the other agents' intervals, and a quantity computed twice gets the same resamples."""
+    key = zlib.crc32("\x1f".join((purpose, *names)).encode())
+    return np.random.default_rng([seed, key])
 
 
 # -- point statistics (any leading axes are batch axes) -------------------------------------
@@ -219,8 +228,6 @@ def iqm_curve(
 
 def mean_confidence_interval(values: np.ndarray, confidence: float) -> Interval:
     """Mean with its Student-t interval (for Monte Carlo estimates such as random scores)."""
-    from scipy import stats as sps
-
     values = np.asarray(values, dtype=float)
     mean = float(values.mean())
     if values.size < 2:

@@ -1,19 +1,126 @@
-"""Command-line option parsing shared by the subcommands."""
+"""The one layer over argparse every command uses: one-line errors, one error printer.
+
+Every bad option or value becomes :class:`ConfigError`, and :func:`guarded` turns it into
+the single line ``seedsweep: error: <field>: <message>`` with exit status 2 — for argparse's
+own errors too (``--workers abc``, an unknown option, a missing argument).
+"""
 
 from __future__ import annotations
 
 import argparse
-from typing import Any
+import re
+import sys
+from collections.abc import Callable
+from typing import Any, NoReturn
 
-from seedsweep.agents.base import ConfigError
+from seedsweep.configs.checks import ConfigError
+from seedsweep.runner.analysis.scores import MissingRandomScore
+from seedsweep.runner.execution import logs
+from seedsweep.runner.launch.random_scores import measure_random
+
+EXIT_BAD_INPUT = 2
+EXIT_INTERRUPTED = 130
 
 
 class OneLineParser(argparse.ArgumentParser):
-    """argparse that reports bad options as one ConfigError line (exit 2) instead of usage."""
+    """argparse that reports bad options as one ConfigError line instead of usage text."""
 
-    def __init__(self, field_name: str, **kwargs: Any) -> None:
-        super().__init__(**kwargs)
-        self.field_name = field_name
+    def error(self, message: str) -> NoReturn:  # type: ignore[override]
+        m = re.match(r"argument ([^:]+): (.*)", message)
+        if m:
+            field = m.group(1).split("/")[-1]
+            raise ConfigError(field, m.group(2))
+        m = re.match(r"the following arguments are required: (.*)", message)
+        if m:
+            raise ConfigError(m.group(1).split(",")[0].strip(), "missing")
+        m = re.match(r"unrecognized arguments: (.*)", message)
+        if m:
+            raise ConfigError("options", f"unknown option {m.group(1).split()[0]!r} "
+                              f"(see {self.prog} --help)")
+        raise ConfigError("options", message)
 
-    def error(self, message: str) -> None:  # type: ignore[override]
-        raise ConfigError(self.field_name, message)
+
+def parser(command: str, description: str, epilog: str | None = None,
+           usage: str | None = None) -> OneLineParser:
+    """The argument parser of ``seedsweep <command>``."""
+    return OneLineParser(prog=f"seedsweep {command}", description=description, epilog=epilog,
+                         usage=usage, formatter_class=argparse.RawDescriptionHelpFormatter)
+
+
+def guarded(body: Callable[[], int | None]) -> int:
+    """Run a command's body; its exit status, 2 with one line for bad input, 130 when
+    interrupted. argparse's ``--help`` exit (status 0) is returned, not raised."""
+    logs.setup()
+    try:
+        return int(body() or 0)
+    except ConfigError as err:
+        print(f"seedsweep: error: {err}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("seedsweep: interrupted", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    except SystemExit as exit_:  # argparse's --help and --version
+        return int(exit_.code or 0)
+
+
+def add_config_dirs(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--config-dir", action="append", default=[], metavar="DIR",
+                   help="an extra config folder with agent/, env/, suite/ and plan/ inside "
+                        "(repeatable)")
+
+
+# -- options of the statistics commands (report, compare, plan-seeds) -------------------------
+def add_resampling(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--resamples", type=int, default=2000, help="bootstrap resamples (2000)")
+    p.add_argument("--seed", type=int, default=0, help="seed of the resampling (0)")
+
+
+def add_scoring(p: argparse.ArgumentParser, score_methods: tuple[str, ...]) -> None:
+    p.add_argument("--envs", help="comma-separated envs (gymnasium ids or env config names)")
+    p.add_argument("--score", default="final", choices=score_methods,
+                   help="run score: last evaluation, mean of the last K, or area under curve")
+    p.add_argument("--last-k", type=int, default=3, help="K for --score last-k (default 3)")
+
+
+def add_interval_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--confidence", type=float, default=0.95, help="interval level (0.95)")
+    p.add_argument("--allow-few", action="store_true",
+                   help="use agent-env cells with a single complete run")
+    p.add_argument("--random-episodes", type=int, default=None,
+                   help="episodes when the random score must be measured (default: max(100, "
+                   "eval.episodes))")
+
+
+def check_statistics_options(opts: Any) -> None:
+    """Range checks of the options report and compare share (one line, exit 2 on error)."""
+    if not 0.0 < opts.confidence < 1.0:
+        raise ConfigError("--confidence", f"must be in (0, 1) (got {opts.confidence})")
+    check_resampling_options(opts)
+    if opts.random_episodes is not None and opts.random_episodes < 2:
+        raise ConfigError("--random-episodes", f"must be >= 2 (got {opts.random_episodes})")
+
+
+def check_resampling_options(opts: Any) -> None:
+    """Range checks of --resamples, --seed and --last-k (report, compare, plan-seeds)."""
+    if opts.resamples < 100:
+        raise ConfigError("--resamples", f"must be >= 100 (got {opts.resamples})")
+    if opts.seed < 0:
+        raise ConfigError("--seed", f"must be >= 0 (got {opts.seed})")
+    if opts.last_k < 1:
+        raise ConfigError("--last-k", f"must be >= 1 (got {opts.last_k})")
+
+
+def with_random_scores(compute: Callable[[], Any]) -> Any:
+    """``compute()``, first measuring each random score it finds missing (the report side
+    reads records only; measuring is a launch, asked for here)."""
+    asked: set[str] = set()
+    while True:
+        try:
+            return compute()
+        except MissingRandomScore as missing:
+            key = str(missing.request.folder)
+            if key in asked:  # measured, yet still missing: do not loop
+                raise ConfigError("random", f"{missing}; the measured random run in {key} "
+                                  "was not usable") from None
+            asked.add(key)
+            measure_random(missing.request)

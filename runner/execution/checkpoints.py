@@ -10,37 +10,17 @@ from __future__ import annotations
 
 import hashlib
 import io
-import random
-import sys
+import logging
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import torch
-
 from seedsweep.runner.execution.records import atomic_write_bytes, atomic_write_text
+
+logger = logging.getLogger(__name__)
 
 FOLDER = "checkpoints"
 KEEP = 2
-
-
-def global_rng_state() -> dict[str, Any]:
-    kind, keys, pos, has_gauss, cached = np.random.get_state()
-    return {
-        "python": random.getstate(),
-        "numpy": {"kind": kind, "keys": torch.from_numpy(keys.astype(np.int64)), "pos": int(pos),
-                  "has_gauss": int(has_gauss), "cached": float(cached)},
-        "torch": torch.get_rng_state(),
-    }
-
-
-def load_global_rng_state(state: dict[str, Any]) -> None:
-    py = state["python"]
-    random.setstate((py[0], tuple(py[1]), py[2]))
-    n = state["numpy"]
-    np.random.set_state((n["kind"], n["keys"].numpy().astype(np.uint32), n["pos"], n["has_gauss"],
-                         n["cached"]))
-    torch.set_rng_state(state["torch"])
 
 
 def to_bytes(state: dict[str, Any]) -> bytes:
@@ -63,9 +43,8 @@ def save(run_dir: Path, state: dict[str, Any], env_steps: int) -> Path:
     return path
 
 
-def load_latest(run_dir: Path, log=None) -> tuple[dict[str, Any], Path] | None:
+def load_latest(run_dir: Path) -> tuple[dict[str, Any], Path] | None:
     """The newest checkpoint that verifies and loads, or None. Bad ones are reported."""
-    log = log or (lambda msg: print(msg, file=sys.stderr))
     for path in sorted((run_dir / FOLDER).glob("ckpt-*.pt"), reverse=True):
         digest_file = path.with_suffix(".sha256")
         try:
@@ -76,7 +55,7 @@ def load_latest(run_dir: Path, log=None) -> tuple[dict[str, Any], Path] | None:
             state = torch.load(io.BytesIO(data), weights_only=True)
             return state, path
         except Exception as err:  # any failure to read means: do not continue from it
-            log(f"seedsweep: warning: checkpoint {path.name} unusable ({err}); trying an older one")
+            logger.warning("checkpoint %s unusable (%s); trying an older one", path.name, err)
     return None
 
 

@@ -1,182 +1,216 @@
-"""Composing, expanding and checking run configs (hydra's compose API and override grammar).
+"""One run's config: hydra composition, per-env agent settings and the runner's own checks.
 
-The CLI expands a sweep into single-run override lists itself and composes each with
-hydra, so every run of a sweep is checked before the first one starts and a bad value
-never leaves a half-made results folder behind.
+The launch layer expands sweeps into single-run override lists and composes each here, so
+every run of a sweep is checked before the first one starts and a bad value never leaves a
+half-made results folder behind.
+
+hydra reads ``configs/`` (and every ``--config-dir``) as a config tree whose groups are
+``agent/`` and ``env/``; ``suite/`` and ``plan/`` sit beside them but are plans of runs,
+read by the launch layer, never selected by hydra (no top-level key shares their names).
 """
 
 from __future__ import annotations
 
-import itertools
 import re
-from collections import OrderedDict
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
 import seedsweep.configs
-from seedsweep.agents.base import ConfigError, check_type
+import yaml
+from hydra import compose as hydra_compose
+from hydra import initialize_config_dir
+from hydra.core.override_parser.overrides_parser import OverridesParser
+from hydra.errors import HydraException, OverrideParseException
+from omegaconf import OmegaConf
+from omegaconf.errors import OmegaConfBaseException
+from seedsweep.configs.checks import ConfigError, check_type, suggest, unknown_key
 
 TOP_KEYS = {
     "agent", "env", "seed", "steps", "eval", "sweep", "results_dir", "torch_threads",
     "checkpoint", "log",
 }
-GROUPS = ("agent", "env")
+HYDRA_GROUPS = ("agent", "env")  # config folders that hydra composes
+PLAN_GROUPS = ("suite", "plan")  # config folders read by the launch layer only
+# Sections of an agent YAML that are not hyperparameters: settings per env config
+# (applied under the command line's own overrides) and the search space of ``tune``.
+AGENT_SECTIONS = ("per_env", "search")
+SECTION_KEYS = {"eval": ("deterministic", "episodes", "every"), "checkpoint": ("every",),
+                "log": ("every",)}
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_][A-Za-z0-9_.-]*$")
-
-
-HYDRA_GROUPS = ("agent", "env")  # config folders that are hydra groups
 
 
 def config_dir() -> Path:
     """The shipped configs (package data of ``seedsweep.configs``)."""
-    return Path(seedsweep.configs.__file__).resolve().parent
+    return seedsweep.configs.folder()
 
 
-_HYDRA_ROOTS: dict[str, str] = {}
+def config_roots(extra_dirs: Sequence[Path | str] = ()) -> list[Path]:
+    """The shipped config folder, then the user's ``--config-dir`` folders (each checked:
+    it must exist, and a ``sweep/`` folder inside would capture hydra's ``sweep=`` key)."""
+    roots = [config_dir()]
+    for d in map(Path, extra_dirs):
+        if not d.is_dir():
+            raise ConfigError("--config-dir", f"{d} is not a folder")
+        if (d / "sweep").is_dir():
+            raise ConfigError("--config-dir", f"{d / 'sweep'}: plan files go in a plan/ "
+                              "folder (a sweep/ folder would clash with the sweep= key)")
+        roots.append(d)
+    return roots
 
 
-def _hydra_root(source: Path) -> str:
-    """A folder hydra may read as a config tree: links to ``source``'s run configs only.
-
-    hydra reads every sub-folder of a config folder as a config group, and a group named
-    ``sweep`` would capture the ``sweep=NAME`` key; sweep files are plans, not run configs.
-    """
-    key = str(source.resolve())
-    if key not in _HYDRA_ROOTS:
-        import atexit
-        import shutil
-        import tempfile
-
-        root = Path(tempfile.mkdtemp(prefix="seedsweep-configs-"))
-        atexit.register(shutil.rmtree, root, True)
-        for name in ("config.yaml", *HYDRA_GROUPS):
-            if (source / name).exists():
-                (root / name).symlink_to(source.resolve() / name)
-        _HYDRA_ROOTS[key] = str(root)
-    return _HYDRA_ROOTS[key]
-
-
-def group_options(group: str, extra_dirs: Sequence[Path] = ()) -> list[str]:
-    """Names of the YAML files of a config group (``agent``, ``env``, ...)."""
+def group_options(group: str, extra_dirs: Sequence[Path | str] = ()) -> list[str]:
+    """Names of the YAML files of a config group (``agent``, ``env``, ``suite``, ``plan``)."""
     names = set()
-    for root in [config_dir(), *map(Path, extra_dirs)]:
+    for root in config_roots(extra_dirs):
         folder = root / group
         if folder.is_dir():
             names.update(p.stem for p in folder.glob("*.yaml"))
     return sorted(names)
 
 
-def parse_overrides(overrides: Sequence[str]):
-    from hydra.core.override_parser.overrides_parser import OverridesParser
-    from hydra.errors import OverrideParseException
+def group_file(group: str, name: str, extra_dirs: Sequence[Path | str] = (),
+               what: str = "option") -> Path:
+    """The YAML file of ``name`` in ``group`` (the last ``--config-dir`` that has it wins,
+    as in hydra's search path); ConfigError naming the allowed names otherwise."""
+    found = [r / group / f"{name}.yaml" for r in config_roots(extra_dirs)
+             if (r / group / f"{name}.yaml").is_file()]
+    if not found:
+        allowed = group_options(group, extra_dirs)
+        raise ConfigError(group, f"unknown {what} {name!r} (allowed: {', '.join(allowed)})"
+                          + suggest(name, allowed))
+    return found[-1]
 
+
+def read_yaml(path: Path, field: str) -> Any:
+    """A YAML file's content; one ConfigError line for unreadable, non-UTF-8 or bad YAML."""
+    try:
+        return yaml.safe_load(path.read_bytes().decode("utf-8"))
+    except UnicodeDecodeError:
+        raise ConfigError(field, f"{path} is not UTF-8 text") from None
+    except yaml.YAMLError as err:
+        first = str(err).strip().splitlines()
+        raise ConfigError(field, f"{path} is not valid YAML ({' '.join(first[:2])})") from None
+    except OSError as err:
+        raise ConfigError(field, f"cannot read {path} ({err.strerror or err})") from None
+
+
+def parse_overrides(overrides: Sequence[str]) -> list[Any]:
+    """hydra's parsed overrides; a syntax error is one ConfigError line."""
     parser = OverridesParser.create()
     try:
         return parser.parse_overrides(list(overrides))
     except OverrideParseException as err:
         raise ConfigError("overrides", str(err).strip().splitlines()[0]) from None
+    except Exception as err:  # hydra's lexer raises its own types on odd characters
+        raise ConfigError("overrides", f"cannot parse {' '.join(overrides)!r}: "
+                          f"{str(err).strip().splitlines()[0] if str(err).strip() else err}"
+                          ) from None
 
 
-def expand(overrides: Sequence[str], multirun: bool) -> list[list[str]]:
-    """One override list per run: the cross product of every swept key (hydra grammar)."""
-    parsed = parse_overrides(overrides)
-    axes: OrderedDict[str, list[str]] = OrderedDict()
-    for o in parsed:
-        key = o.get_key_element()
-        if o.is_sweep_override():
-            if not multirun:
-                raise ConfigError(key, "several values given; add -m to run a sweep")
-            if not o.is_discrete_sweep():
-                raise ConfigError(key, "only lists, range() and choice() sweeps are supported")
-            values = [f"{key}={v}" for v in o.sweep_string_iterator()]
-            if not values:
-                raise ConfigError(key, "the sweep over this key is empty")
-            axes[key] = values
-        else:
-            axes[key] = [f"{key}={o.get_value_element_as_str()}"]
-    return [list(combo) for combo in itertools.product(*axes.values())]
+def hydra_value(value: Any) -> str:
+    """A python value in hydra's override grammar (strings quoted, so any text survives)."""
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return repr(value)
+    if isinstance(value, str):
+        return "'" + value.replace("\\", "\\\\").replace("'", "\\'") + "'"
+    if isinstance(value, (list, tuple)):
+        return "[" + ",".join(hydra_value(v) for v in value) + "]"
+    if isinstance(value, dict):
+        for k in value:
+            if not (isinstance(k, str) and k.isidentifier()):
+                raise ConfigError("env.kwargs", f"key {k!r} cannot be passed as an override; "
+                                  "add random-agent runs to the sweep instead")
+        return "{" + ",".join(f"{k}:{hydra_value(v)}" for k, v in value.items()) + "}"
+    raise ConfigError("env", f"cannot pass {value!r} as an override")
 
 
-SUITE_KEYS = {"name", "description", "envs", "steps", "eval"}
 
+def compose(overrides: Sequence[str], extra_dirs: Sequence[Path | str] = ()) -> dict[str, Any]:
+    """The resolved config of one run as a plain dict; raises ConfigError on bad input.
 
-def apply_suite(overrides: Sequence[str], extra_dirs: Sequence[Path] = ()) -> list[list[str]]:
-    """Replace ``suite=NAME`` by the suite's envs, budgets and evaluation settings.
-
-    Returns override groups (one per distinct budget); keys the user gives explicitly
-    (``steps=``, ``eval.every=``, ``eval.episodes=``, ``sweep=``) win over the suite's.
+    The agent YAML's ``per_env`` settings for the run's env config are applied under the
+    command line's own ``agent.*`` overrides, and the ``per_env`` and ``search`` sections are
+    dropped: the result holds only the values the run uses (so they are part of its id).
     """
-    import yaml
-
-    suites = [o for o in overrides if o.split("=", 1)[0] == "suite"]
-    if not suites:
-        return [list(overrides)]
-    if len(suites) > 1 or "," in suites[0]:
-        raise ConfigError("suite", "give one suite per sweep")
-    name = suites[0].split("=", 1)[1]
-    allowed = group_options("suite", extra_dirs)
-    if name not in allowed:
-        raise ConfigError("suite", f"unknown suite {name!r} (allowed: {', '.join(allowed)})")
-    path = next(p for p in [config_dir(), *map(Path, extra_dirs)]
-                if (p / "suite" / f"{name}.yaml").is_file()) / "suite" / f"{name}.yaml"
-    doc = yaml.safe_load(path.read_text()) or {}
-    unknown = sorted(set(doc) - SUITE_KEYS)
-    if unknown:
-        raise ConfigError(f"suite.{unknown[0]}", f"unknown key in {path} (allowed: "
-                          f"{', '.join(sorted(SUITE_KEYS))})")
-    rest = [o for o in overrides if o.split("=", 1)[0] != "suite"]
-    given = {o.split("=", 1)[0].lstrip("+") for o in rest}
-    if "env" in given:
-        raise ConfigError("env", f"suite={name} chooses the envs; drop env=")
-    common = [] if "sweep" in given else [f"sweep={name}"]
-    for key, value in (doc.get("eval") or {}).items():
-        if f"eval.{key}" not in given:
-            common.append(f"eval.{key}={value}")
-    envs = doc.get("envs") or []
-    steps = doc.get("steps")
-    if isinstance(steps, dict) and "steps" not in given:
-        missing = [e for e in envs if e not in steps]
-        if missing:
-            raise ConfigError("suite.steps", f"no budget for env {missing[0]!r} in {path}")
-        return [[f"env={e}", f"steps={steps[e]}", *common, *rest] for e in envs]
-    budget = [f"steps={steps}"] if steps is not None and "steps" not in given else []
-    return [[f"env={','.join(envs)}", *budget, *common, *rest]]
-
-
-def compose(overrides: Sequence[str], extra_dirs: Sequence[Path] = ()) -> dict[str, Any]:
-    """The resolved config of one run as a plain dict; raises ConfigError on bad input."""
-    from hydra import compose as hydra_compose
-    from hydra import initialize_config_dir
-    from hydra.errors import HydraException
-    from omegaconf import OmegaConf
-    from omegaconf.errors import OmegaConfBaseException
-
     _check_groups(overrides, extra_dirs)
     overrides = list(overrides)
+    search = []
     if extra_dirs:
-        roots = ",".join(f"file://{_hydra_root(Path(d))}" for d in extra_dirs)
-        overrides.append(f"hydra.searchpath=[{roots}]")
-    try:
-        with initialize_config_dir(config_dir=_hydra_root(config_dir()), version_base=None):
-            cfg = hydra_compose(config_name="config", overrides=overrides)
-        resolved = OmegaConf.to_container(cfg, resolve=True)
-    except (HydraException, OmegaConfBaseException) as err:
-        raise ConfigError(_failing_key(str(err), overrides), _first_line(str(err))) from None
+        roots = ",".join(f"file://{d.resolve()}" for d in config_roots(extra_dirs)[1:])
+        search.append(f"hydra.searchpath=[{roots}]")
+    while True:
+        try:
+            with initialize_config_dir(config_dir=str(config_dir()), version_base=None):
+                cfg = hydra_compose(config_name="config", overrides=overrides + search)
+            resolved = OmegaConf.to_container(cfg, resolve=True)
+            break
+        except (HydraException, OmegaConfBaseException) as err:
+            added = _as_addition(str(err), overrides)
+            if added is None:
+                raise ConfigError(_failing_key(str(err)), _first_line(str(err))) from None
+            overrides = added
+    return apply_per_env(resolved, overrides)
+
+
+def _as_addition(message: str, overrides: list[str]) -> list[str] | None:
+    """An ``agent.KEY=V`` or ``env.KEY=V`` override whose YAML lacks KEY becomes
+    ``+agent.KEY=V``: the agent's Config (or the env schema) then accepts it or refuses it
+    naming the allowed keys, so no one has to know hydra's ``+`` rule."""
+    m = re.search(r"Could not override '((?:agent|env)\.[^'.]+)'", message)
+    if not m:
+        return None
+    key = m.group(1)
+    out = [f"+{o}" if o.split("=", 1)[0] == key else o for o in overrides]
+    return out if out != overrides else None
+
+
+def apply_per_env(resolved: dict[str, Any], overrides: Sequence[str]) -> dict[str, Any]:
+    """Merge ``agent.per_env[<env config name>]`` into the agent section, except keys the
+    command line sets; drop the sections that are not hyperparameters."""
+    agent = resolved.get("agent")
+    if not isinstance(agent, dict):
+        return resolved
+    per_env = agent.pop("per_env", None) or {}
+    agent.pop("search", None)
+    if not isinstance(per_env, dict):
+        raise ConfigError("agent.per_env", f"expected a mapping env name -> settings, got "
+                          f"{per_env!r}")
+    env_name = (resolved.get("env") or {}).get("name")
+    settings = per_env.get(env_name) or {}
+    if not isinstance(settings, dict):
+        raise ConfigError(f"agent.per_env.{env_name}", f"expected a mapping of settings, got "
+                          f"{settings!r}")
+    given = {o.get_key_element().lstrip("+~") for o in parse_overrides(
+        [o for o in overrides if not o.startswith("hydra.")])}
+    for key, value in settings.items():
+        if key in ("name", "entry", *AGENT_SECTIONS):
+            raise ConfigError(f"agent.per_env.{env_name}.{key}", "only hyperparameters can "
+                              "differ by env")
+        if f"agent.{key}" not in given:
+            agent[key] = value
     return resolved
 
 
-def _check_groups(overrides: Sequence[str], extra_dirs: Sequence[Path]) -> None:
+def _check_groups(overrides: Sequence[str], extra_dirs: Sequence[Path | str]) -> None:
     for o in parse_overrides(overrides):
         key = o.get_key_element().lstrip("+~")
-        if key in GROUPS and not o.is_sweep_override():
+        if key in PLAN_GROUPS:
+            flag = "-m suite=NAME" if key == "suite" else "--plan NAME"
+            raise ConfigError(key, f"{key} files are plans of runs: use {flag}")
+        if key in HYDRA_GROUPS and not o.is_sweep_override():
             value = o.get_value_element_as_str()
             allowed = group_options(key, extra_dirs)
             if value not in allowed:
-                raise ConfigError(key, f"unknown option {value!r} (allowed: {', '.join(allowed)})")
+                raise ConfigError(key, f"unknown option {value!r} (allowed: "
+                                  f"{', '.join(allowed)})" + suggest(value, allowed))
 
 
-def _failing_key(message: str, overrides: Sequence[str]) -> str:
+def _failing_key(message: str) -> str:
     m = re.search(r"override '([^']+)'", message) or re.search(r"Key '([^']+)'", message)
     if m:
         return m.group(1)
@@ -188,17 +222,30 @@ def _first_line(message: str) -> str:
     text = " ".join(lines[:2]) if lines else "invalid config"
     m = re.search(r"Could not override '([^']+)'", text)
     if m:
-        return f"unknown key (add a new key with +{m.group(1)}=...)"
+        return unknown_override(m.group(1))
     if "not in struct" in text:
         return f"unknown key ({text}); top-level keys: {', '.join(sorted(TOP_KEYS))}"
     return text
+
+
+def unknown_override(key: str) -> str:
+    """Message for a key the config does not have: the nearest known key, never a hint to
+    add it with ``+`` (the run would then refuse it anyway)."""
+    section, _, leaf = key.rpartition(".")
+    if not section:
+        return f"unknown key (allowed: {', '.join(sorted(TOP_KEYS))})" + suggest(key, TOP_KEYS)
+    allowed = SECTION_KEYS.get(section)
+    if allowed is None:
+        return f"unknown key {leaf!r} in {section}"
+    return (f"unknown key {leaf!r} in {section} (allowed: {', '.join(allowed)})"
+            + suggest(leaf, allowed))
 
 
 def check_run_config(cfg: dict[str, Any]) -> None:
     """Check the runner's own keys (the agent and env sections are checked by their layers)."""
     unknown = sorted(set(cfg) - TOP_KEYS)
     if unknown:
-        raise ConfigError(unknown[0], f"unknown key (allowed: {', '.join(sorted(TOP_KEYS))})")
+        raise unknown_key(unknown[0], unknown[0], TOP_KEYS, "key")
     seed = check_type("seed", cfg.get("seed"), int)
     if seed < 0:
         raise ConfigError("seed", f"must be a non-negative integer (got {seed})")
@@ -218,8 +265,10 @@ def check_run_config(cfg: dict[str, Any]) -> None:
     if not SAFE_NAME.match(sweep):
         raise ConfigError(
             "sweep", f"must be a folder name of letters, digits, '_', '-', '.' (got {sweep!r})")
-    check_type("results_dir", cfg.get("results_dir"), str)
-    for group in GROUPS:
+    results_dir = check_type("results_dir", cfg.get("results_dir"), str)
+    if not results_dir.strip():
+        raise ConfigError("results_dir", "must be a folder path (got an empty string)")
+    for group in HYDRA_GROUPS:
         if not isinstance(cfg.get(group), dict):
             raise ConfigError(group, "missing config group")
 

@@ -9,17 +9,17 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-import torch
-
 from seedsweep.agents.base import Agent, Step
 from seedsweep.envs.batch import TrainEnvs
-from seedsweep.runner.launch.progress import RunProgress
+from seedsweep.runner.execution.progress import RunListener
 from seedsweep.runner.execution.protocol import EpisodeRecord, evaluate, mean_and_stderr
+from seedsweep.runner.execution.seeding import capture_global_rngs, restore_global_rngs
+from seedsweep.runner.execution.state import nonfinite_path
 
 CHECK_EVERY = 256  # steps between looks at the clock (progress display)
 
@@ -29,16 +29,21 @@ class NonFiniteError(FloatingPointError):
 
 
 def check_finite(state: Any, env_steps: int, path: str = "agent") -> None:
-    """Raise NonFiniteError if any floating tensor in a (nested) state is not finite."""
-    if isinstance(state, torch.Tensor):
-        if state.is_floating_point() and not bool(torch.isfinite(state).all()):
-            raise NonFiniteError(f"{path} has NaN or inf values at env step {env_steps}")
-    elif isinstance(state, dict):
-        for key, value in state.items():
-            check_finite(value, env_steps, f"{path}.{key}")
-    elif isinstance(state, (list, tuple)):
-        for i, value in enumerate(state):
-            check_finite(value, env_steps, f"{path}[{i}]")
+    """Raise NonFiniteError if any floating value in a (nested) state is NaN or infinite."""
+    bad = nonfinite_path(state, path)
+    if bad is not None:
+        raise NonFiniteError(f"{bad} has NaN or inf values at env step {env_steps}")
+
+
+def env_step(envs: TrainEnvs, obs: np.ndarray, actions: np.ndarray,
+             env_steps: int) -> tuple[Step, np.ndarray, Sequence[tuple[float, int]]]:
+    """Step the training envs once: the agent's :class:`Step`, the observations to act on
+    next, and the (raw return, length) of episodes that ended. The one place a training
+    step is made, for the loop and for check-agent alike."""
+    nxt, rewards, next_obs, terminated, truncated, finished = envs.step(actions)
+    step = Step(obs, actions, rewards, next_obs, terminated, truncated,
+                env_steps + envs.num_envs)
+    return step, nxt, finished
 
 
 @dataclass
@@ -71,10 +76,9 @@ class Trainer:
         schedule: Schedule,
         train_seed: int,
         eval_seeds: tuple[int, ...],
-        progress: RunProgress,
+        progress: RunListener,
         on_evaluation: Callable[[Trainer], None] | None = None,
         on_checkpoint: Callable[[Trainer], None] | None = None,
-        tb=None,
     ):
         self.agent = agent
         self.envs = envs
@@ -85,7 +89,7 @@ class Trainer:
         self.progress = progress
         self.on_evaluation = on_evaluation
         self.on_checkpoint = on_checkpoint
-        self.tb = tb
+        self.tb: Any = None  # a TensorBoard writer, set by the run once its folder exists
         self.records = Records()
         self.env_steps = 0
         self.next_eval = schedule.eval_every
@@ -116,12 +120,9 @@ class Trainer:
         next_event = self._next_event(next_check)
         try:
             while steps < budget:
-                actions = agent.act(obs, True)
-                nxt, rewards, next_obs, terminated, truncated, finished = envs.step(actions)
-                steps += n
-                metrics = agent.observe(
-                    Step(obs, actions, rewards, next_obs, terminated, truncated, steps)
-                )
+                step, nxt, finished = env_step(envs, obs, agent.act(obs, True), steps)
+                steps = step.env_steps
+                metrics = agent.observe(step)
                 if metrics:
                     for key, value in metrics.items():
                         if not math.isfinite(value):
@@ -218,22 +219,18 @@ class Trainer:
 
     def capture(self, final: bool = False) -> dict[str, Any]:
         """Everything needed to continue this run from here (or its final state)."""
-        from seedsweep.runner.execution.checkpoints import global_rng_state
-
         return {
             "agent": self.agent.state_dict(),
             "envs": self.envs.state_dict("final" if final else self.snapshot_kind),
             "loop": self.loop_state(),
-            "global_rngs": global_rng_state(),
+            "global_rngs": capture_global_rngs(),
         }
 
     def restore(self, state: dict[str, Any]) -> None:
-        from seedsweep.runner.execution.checkpoints import load_global_rng_state
-
         self.agent.load_state_dict(state["agent"])
         self.obs = self.envs.load_state_dict(state["envs"])
         self.load_loop_state(state["loop"])
-        load_global_rng_state(state["global_rngs"])
+        restore_global_rngs(state["global_rngs"])
 
     def load_loop_state(self, state: dict[str, Any]) -> None:
         self.env_steps = int(state["env_steps"])

@@ -15,7 +15,6 @@ from dataclasses import dataclass
 
 import gymnasium as gym
 import numpy as np
-
 from seedsweep.agents.base import Agent
 
 

@@ -16,6 +16,18 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+import gymnasium
+import numpy
+import seedsweep.agents
+import seedsweep.envs
+import torch
+from seedsweep.configs.checks import ConfigError
+
+
+class RecordError(ConfigError):
+    """A record on disk that cannot be read (corrupt, truncated, not what it should be)."""
+
+
 EVAL_COLUMNS = ("env_step", "episode", "return", "discounted_return", "length", "episode_seed")
 TRAIN_COLUMNS = ("env_step", "return", "length")
 SCALAR_COLUMNS = ("env_step", "key", "value")
@@ -70,6 +82,32 @@ def fsync_dir(path: Path) -> None:
         os.close(fd)
 
 
+def read_run_json(run_dir: Path) -> dict[str, Any] | None:
+    """A run folder's ``run.json``: None when there is none yet; RecordError (one line,
+    naming the file) when it exists but cannot be read as a JSON object."""
+    path = Path(run_dir) / "run.json"
+    try:
+        doc = json.loads(path.read_bytes().decode("utf-8"))
+    except FileNotFoundError:
+        return None
+    except (OSError, ValueError, UnicodeDecodeError) as err:
+        text = str(err).strip().splitlines()
+        raise RecordError(str(path), f"unreadable run.json ({text[0] if text else err!r})"
+                          ) from None
+    if not isinstance(doc, dict):
+        raise RecordError(str(path), "run.json is not a JSON object")
+    return doc
+
+
+def json_default(value: Any) -> Any:
+    """``json.dumps(default=...)`` for numpy scalars and paths in records and reports."""
+    if isinstance(value, numpy.generic):
+        return value.item()
+    if isinstance(value, Path):
+        return str(value)
+    raise TypeError(f"not JSON serialisable: {type(value).__name__}")
+
+
 def csv_text(columns: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
     """CSV with floats written by ``repr`` (shortest round-trip form): bit-exact, stable."""
     buf = io.StringIO()
@@ -105,10 +143,6 @@ def provenance() -> dict[str, Any]:
     """Where and with what code a run was made (computed once per process)."""
     global _PROVENANCE
     if _PROVENANCE is None:
-        import gymnasium
-        import numpy
-        import torch
-
         commit, dirty = _git_state()
         _PROVENANCE = {
             "code_version": code_version(),
@@ -124,36 +158,35 @@ def provenance() -> dict[str, Any]:
     return dict(_PROVENANCE)
 
 
-def code_root() -> Path:
-    """The folder holding the installed packages' sources (the repo in a checkout)."""
-    return Path(__file__).resolve().parents[2]
-
-
 _CODE_VERSION: str | None = None
-RESULT_MODULES = ("run", "loop", "protocol", "seeding", "checkpoints", "config", "records")
+
+
+def result_packages() -> dict[str, Path]:
+    """The packages whose source computes a run's results, with their folders: the agents,
+    the envs and this execution layer (not the launchers, analysis, report or CLI)."""
+    return {
+        "seedsweep.agents": Path(seedsweep.agents.__file__).resolve().parent,
+        "seedsweep.envs": Path(seedsweep.envs.__file__).resolve().parent,
+        "seedsweep.runner.execution": Path(__file__).resolve().parent,
+    }
 
 
 def code_version() -> str:
-    """Hash of the source that computes a run's results: agents/, envs/ and the runner's
-    training, evaluation and record modules (not the report, CLI or launchers).
-
-    Unlike the git commit it also changes with uncommitted edits, and not with docs.
-    """
+    """Hash of every module of :func:`result_packages`. Unlike the git commit it also
+    changes with uncommitted edits, and not with docs or the report."""
     global _CODE_VERSION
     if _CODE_VERSION is None:
         h = hashlib.sha256()
-        root = code_root()
-        files = [*(root / "agents").rglob("*.py"), *(root / "envs").rglob("*.py"),
-                 *(root / "runner" / "execution").rglob("*.py")]
-        for f in sorted(files):
-                h.update(str(f.relative_to(root)).encode())
+        for name, folder in sorted(result_packages().items()):
+            for f in sorted(folder.rglob("*.py")):
+                h.update(f"{name}/{f.relative_to(folder).as_posix()}".encode())
                 h.update(f.read_bytes())
         _CODE_VERSION = h.hexdigest()[:12]
     return _CODE_VERSION
 
 
 def _git_state() -> tuple[str | None, bool | None]:
-    root = code_root()
+    root = Path(__file__).resolve().parent
     try:
         commit = subprocess.run(
             ["git", "-C", str(root), "rev-parse", "HEAD"],

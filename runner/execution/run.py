@@ -1,123 +1,35 @@
-"""One run, start to finish: check everything, then train, evaluate and record.
+"""One run, start to finish: lock, train, evaluate and record (after :mod:`.prepare`).
 
-``prepare`` does every check (config, env, agent, action space) without touching the
-disk, so bad input never leaves a run folder behind. ``execute`` makes the folder and
-writes each record atomically; ``run.json`` says ``complete`` only after everything else
-is on disk.
+``execute`` makes the run folder and writes each record atomically; ``run.json`` says
+``complete`` only after everything else is on disk. A complete run is skipped, a failed one
+too unless asked, an interrupted one resumes from its newest usable checkpoint.
 """
 
 from __future__ import annotations
 
-import importlib
-import json
+import logging
 import math
-import sys
+import signal
 import time
 import traceback
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import torch
 from filelock import FileLock, Timeout
-
-from seedsweep.agents.base import Agent, ConfigError, build_config
-from seedsweep.envs.build import EnvSpec, make_eval_env, make_train_envs, parse_env_config
-from seedsweep.runner.execution import checkpoints
-from seedsweep.runner.execution import records
-from seedsweep.runner.execution.config import check_run_config
+from omegaconf import OmegaConf
+from seedsweep.envs.build import make_eval_env, make_train_envs
+from seedsweep.runner.execution import checkpoints, records
 from seedsweep.runner.execution.loop import Schedule, Trainer
-from seedsweep.runner.launch.progress import RunProgress
-from seedsweep.runner.execution.seeding import RunSeeds, derive_seeds, seed_globals
+from seedsweep.runner.execution.prepare import PreparedRun
+from seedsweep.runner.execution.progress import RunListener, Silent
+from seedsweep.runner.execution.seeding import seed_globals
+from torch.utils.tensorboard import SummaryWriter
+
+logger = logging.getLogger(__name__)
 
 CHECKPOINT = "checkpoint.pt"
 LOCK = ".lock"
-
-
-@dataclass
-class PreparedRun:
-    """A fully checked run: everything needed to start it, nothing written yet."""
-
-    config: dict[str, Any]
-    env: EnvSpec
-    agent_cls: type[Agent]
-    agent_config: Any
-    seeds: RunSeeds
-    run_id: str
-    run_dir: Path
-
-    @property
-    def label(self) -> str:
-        return self.run_id
-
-
-def load_agent_class(entry: Any) -> type[Agent]:
-    """``module:Class`` (or ``path/to/file.py:Class``) to the agent class."""
-    if not isinstance(entry, str) or ":" not in entry:
-        raise ConfigError("agent.entry", f"expected 'module:Class', got {entry!r}")
-    module_name, _, cls_name = entry.rpartition(":")
-    try:
-        if module_name.endswith(".py"):
-            path = Path(module_name).resolve()
-            if not path.is_file():
-                raise ImportError(f"no such file {module_name}")
-            unique = f"seedsweep_agent_{path.stem}_{abs(hash(str(path))):x}"
-            module = sys.modules.get(unique)
-            if module is None:
-                spec = importlib.util.spec_from_file_location(unique, path)
-                module = importlib.util.module_from_spec(spec)
-                sys.modules[unique] = module  # dataclasses look their module up here
-                try:
-                    spec.loader.exec_module(module)
-                except BaseException:
-                    del sys.modules[unique]
-                    raise
-        else:
-            module = importlib.import_module(module_name)
-    except (ImportError, FileNotFoundError) as err:
-        raise ConfigError("agent.entry", f"cannot import {module_name!r}: {err}") from None
-    cls = getattr(module, cls_name, None)
-    if cls is None:
-        raise ConfigError("agent.entry", f"{module_name!r} has no attribute {cls_name!r}")
-    for attr in ("act", "observe", "state_dict", "load_state_dict", "Config", "supports"):
-        if not hasattr(cls, attr):
-            raise ConfigError("agent.entry", f"{entry} is not an agent (missing {attr}); "
-                              "see agents/base.py")
-    return cls
-
-
-def prepare(cfg: dict[str, Any]) -> PreparedRun:
-    """Check one resolved config end to end; raises ConfigError, writes nothing."""
-    check_run_config(cfg)
-    agent_section = dict(cfg["agent"])
-    name = agent_section.pop("name", None)
-    if not isinstance(name, str) or not name:
-        raise ConfigError("agent.name", "missing (every agent YAML sets name)")
-    agent_cls = load_agent_class(agent_section.pop("entry", None))
-    agent_config = build_config(agent_cls, agent_section)
-    gamma = getattr(agent_config, "gamma", None)
-    if not isinstance(gamma, float) or not 0.0 < gamma <= 1.0:
-        raise ConfigError("agent.gamma", f"must be in (0, 1] (got {gamma!r})")
-    num_envs = getattr(agent_config, "num_envs", 1)
-    if not isinstance(num_envs, int) or num_envs < 1:
-        raise ConfigError("agent.num_envs", f"must be a positive integer (got {num_envs!r})")
-    mode = getattr(agent_config, "vector_mode", "sync")
-    if mode not in ("sync", "async"):
-        raise ConfigError("agent.vector_mode", f"must be 'sync' or 'async' (got {mode!r})")
-    env = parse_env_config(cfg["env"])
-    probe = make_eval_env(env)
-    try:
-        if not agent_cls.supports(probe.action_space):
-            allowed = ", ".join(s.__name__ for s in agent_cls.action_spaces)
-            raise ConfigError(
-                "agent", f"{name} does not support {env.id}'s action space {probe.action_space} "
-                f"(supports: {allowed})")
-    finally:
-        probe.close()
-    seeds = derive_seeds(cfg["seed"], cfg["eval"]["episodes"], num_envs)
-    rid = records.run_id(cfg)
-    run_dir = Path(cfg["results_dir"]) / cfg["sweep"] / rid
-    return PreparedRun(cfg, env, agent_cls, agent_config, seeds, rid, run_dir)
 
 
 def _run_json(p: PreparedRun, status: str, started: str, **extra: Any) -> dict[str, Any]:
@@ -164,7 +76,6 @@ def _progress_records(p: PreparedRun, run_dir: Path, trainer: Trainer, started: 
 def interrupt_on_sigterm() -> None:
     """Turn SIGTERM (what a cluster sends before killing a job) into KeyboardInterrupt, so
     the run records itself as interrupted, not failed, and resumes next time."""
-    import signal
 
     def handler(signum, frame):
         raise KeyboardInterrupt(f"signal {signum}")
@@ -179,26 +90,18 @@ class RunBusy(RuntimeError):
     """Another process holds this run's lock: it is running elsewhere right now."""
 
 
-def read_run_json(run_dir: Path) -> dict[str, Any] | None:
-    try:
-        return json.loads((run_dir / "run.json").read_text())
-    except (OSError, ValueError):
-        return None
-
-
 def lock_for(run_dir: Path) -> FileLock:
     """The run's lock: an OS file lock, so a crashed holder releases it by dying."""
     return FileLock(str(run_dir / LOCK), timeout=0)
 
 
-def execute(p: PreparedRun, progress: Any = "auto", retry_failed: bool = False,
-            log=None) -> dict[str, Any]:
+def execute(p: PreparedRun, listener: RunListener | None = None,
+            retry_failed: bool = False) -> dict[str, Any]:
     """Train, evaluate and record one prepared run; returns its final ``run.json``.
 
     A complete run is skipped; a failed one too unless ``retry_failed``; an interrupted
     one resumes from its newest usable checkpoint. Raises RunBusy if the run's lock is held.
     """
-    log = log or (lambda msg: print(msg, file=sys.stderr))
     run_dir = p.run_dir
     run_dir.mkdir(parents=True, exist_ok=True)
     lock = lock_for(run_dir)
@@ -207,19 +110,21 @@ def execute(p: PreparedRun, progress: Any = "auto", retry_failed: bool = False,
     except Timeout:
         raise RunBusy(f"{p.run_id} is running in another process") from None
     try:
-        existing = read_run_json(run_dir)
+        try:
+            existing = records.read_run_json(run_dir)
+        except records.RecordError as err:  # resume from its checkpoints, if it has any
+            logger.warning("%s; treating the run as interrupted", err)
+            existing = {"status": "unreadable"}
         if existing and existing.get("status") == "complete":
             return {**existing, "skipped": True}
         if existing and existing.get("status") == "failed" and not retry_failed:
             return {**existing, "skipped": True}
-        return _train(p, progress, log, existing)
+        return _train(p, listener or Silent(), existing)
     finally:
         lock.release()
 
 
-def _train(p: PreparedRun, progress: Any, log, existing: dict[str, Any] | None) -> dict[str, Any]:
-    from omegaconf import OmegaConf
-
+def _train(p: PreparedRun, bar: RunListener, existing: dict[str, Any] | None) -> dict[str, Any]:
     run_dir = p.run_dir
     (run_dir / "error.log").unlink(missing_ok=True)
     started = (existing or {}).get("started") or records.now_iso()
@@ -232,8 +137,7 @@ def _train(p: PreparedRun, progress: Any, log, existing: dict[str, Any] | None) 
     try:
         torch.set_num_threads(int(p.config["torch_threads"]))
         seed_globals(p.seeds.global_rngs)
-        envs = make_train_envs(p.env, getattr(p.agent_config, "num_envs", 1),
-                               getattr(p.agent_config, "vector_mode", "sync"))
+        envs = make_train_envs(p.env, p.num_envs, p.vector_mode)
         eval_env = make_eval_env(p.env)
         agent = p.agent_cls(envs.single_observation_space, envs.single_action_space,
                             p.agent_config, p.seeds.agent)
@@ -243,8 +147,6 @@ def _train(p: PreparedRun, progress: Any, log, existing: dict[str, Any] | None) 
             deterministic=ev["deterministic"], log_every=p.config["log"]["every"],
             checkpoint_every=p.config["checkpoint"]["every"],
         )
-        bar = (RunProgress(p.label, schedule.budget, mode=progress) if isinstance(progress, str)
-               else progress.for_run(p.label, schedule.budget))
         trainer = Trainer(
             agent, envs, eval_env, schedule, p.seeds.train_env, p.seeds.eval_episodes, bar,
             on_evaluation=lambda t: _progress_records(p, run_dir, t, started),
@@ -255,12 +157,10 @@ def _train(p: PreparedRun, progress: Any, log, existing: dict[str, Any] | None) 
             envs.track_resets = trainer.snapshot_kind == "reset"
             if trainer.snapshot_kind == "none":
                 trainer.next_checkpoint = math.inf
-                log(f"seedsweep: warning: {p.run_id}: the state of its {envs.num_envs} envs "
-                    "cannot be saved (async vector env, or envs that do not pickle); "
-                    "no training checkpoints, an interrupted run restarts")
-        resumed = _resume(trainer, run_dir, log) if existing else None
-        from torch.utils.tensorboard import SummaryWriter
-
+                logger.warning("%s: the state of its %d envs cannot be saved (async vector env, "
+                               "or envs that do not pickle); no training checkpoints, an "
+                               "interrupted run restarts", p.run_id, envs.num_envs)
+        resumed = _resume(trainer, run_dir) if existing else None
         trainer.tb = SummaryWriter(log_dir=str(run_dir / "tb"),
                                    purge_step=trainer.env_steps if resumed else None)
         loop_start = time.perf_counter()
@@ -285,10 +185,6 @@ def _train(p: PreparedRun, progress: Any, log, existing: dict[str, Any] | None) 
         )
         records.atomic_write_json(run_dir / "run.json", doc)
         checkpoints.clear(run_dir)
-        if loop_s > 0 and not resumed:
-            from seedsweep.runner.launch.estimate import remember
-
-            remember(p, loop_s / max(1, trainer.env_steps))
         return doc
     except KeyboardInterrupt:
         # Ctrl-C or SIGTERM (a cluster's preemption): not a failure; the run stays resumable.
@@ -309,23 +205,18 @@ def _train(p: PreparedRun, progress: Any, log, existing: dict[str, Any] | None) 
         raise
 
 
-def _resume(trainer: Trainer, run_dir: Path, log) -> int | None:
+def _resume(trainer: Trainer, run_dir: Path) -> int | None:
     """Continue from the newest usable checkpoint; returns its env step, or None."""
     while True:
-        found = checkpoints.load_latest(run_dir, log)
+        found = checkpoints.load_latest(run_dir)
         if found is None:
             return None
         state, path = found
         try:
             trainer.restore(state)
         except Exception as err:  # a checkpoint that cannot be restored is not continued from
-            log(f"seedsweep: warning: cannot restore {path.name} ({err}); trying an older one")
+            logger.warning("cannot restore %s (%s); trying an older one", path.name, err)
             path.unlink(missing_ok=True)
             continue
-        log(f"seedsweep: {run_dir.name}: resuming from env step {trainer.env_steps}")
+        logger.info("%s: resuming from env step %d", run_dir.name, trainer.env_steps)
         return trainer.env_steps
-
-
-def main_error(message: str) -> int:
-    print(f"seedsweep: error: {message}", file=sys.stderr)
-    return 2

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import random
 from dataclasses import asdict, dataclass
+from typing import Any
 
 import numpy as np
 import torch
@@ -60,3 +61,25 @@ def seed_globals(seed: int) -> None:
     random.seed(seed)
     np.random.seed(seed % 2**32)
     torch.manual_seed(seed)
+
+
+def capture_global_rngs() -> dict[str, Any]:
+    """The python, numpy and torch global RNG states, as tensors and plain values (so a
+    checkpoint holding them loads with ``torch.load(weights_only=True)``)."""
+    kind, keys, pos, has_gauss, cached = np.random.get_state()
+    return {
+        "python": random.getstate(),
+        "numpy": {"kind": kind, "keys": torch.from_numpy(keys.astype(np.int64)), "pos": int(pos),
+                  "has_gauss": int(has_gauss), "cached": float(cached)},
+        "torch": torch.get_rng_state(),
+    }
+
+
+def restore_global_rngs(state: dict[str, Any]) -> None:
+    """Put back what :func:`capture_global_rngs` returned."""
+    py = state["python"]
+    random.setstate((py[0], tuple(py[1]), py[2]))
+    n = state["numpy"]
+    np.random.set_state((n["kind"], n["keys"].numpy().astype(np.uint32), n["pos"], n["has_gauss"],
+                         n["cached"]))
+    torch.set_rng_state(state["torch"])

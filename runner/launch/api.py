@@ -1,4 +1,4 @@
-"""Python entry points for scripts and tests: the same path as the CLI."""
+"""Python entry point for scripts and tests: one run, by the same path as the command line."""
 
 from __future__ import annotations
 
@@ -6,7 +6,9 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from seedsweep.runner.execution.config import compose
-from seedsweep.runner.execution.run import execute, prepare
+from seedsweep.runner.execution.prepare import prepare
+from seedsweep.runner.execution.run import execute
+from seedsweep.runner.launch.display import RunProgress
 
 
 def run(overrides: Sequence[str], *, results_dir: str | None = None, quiet: bool = True,
@@ -19,5 +21,6 @@ def run(overrides: Sequence[str], *, results_dir: str | None = None, quiet: bool
     if results_dir is not None:
         overrides.append(f"results_dir={results_dir}")
     prepared = prepare(compose(overrides, [Path(d) for d in config_dirs]))
-    execute(prepared, progress="quiet" if quiet else "auto")
+    listener = None if quiet else RunProgress(prepared.run_id, int(prepared.config["steps"]))
+    execute(prepared, listener)
     return prepared.run_dir

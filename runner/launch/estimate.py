@@ -2,12 +2,12 @@
 
 Cost per env step of each agent × env comes from earlier complete runs on this machine
 (a small cache under ``$SEEDSWEEP_CACHE`` or ``~/.cache/seedsweep``), or else from a short
-calibration run of that pair (a couple of thousand steps, timed over its second half so
-that learning-start warm-ups count as little as possible).
+calibration run of that pair (a couple of thousand steps, its whole training loop timed).
 """
 
 from __future__ import annotations
 
+import copy
 import json
 import os
 import socket
@@ -15,8 +15,10 @@ import tempfile
 import time
 from pathlib import Path
 
-from seedsweep.runner.launch.progress import _fmt_eta
+from seedsweep.runner.execution.prepare import PreparedRun, prepare
 from seedsweep.runner.execution.records import atomic_write_json
+from seedsweep.runner.execution.run import execute
+from seedsweep.runner.launch.display import fmt_eta
 
 CALIBRATION_STEPS = 2000
 STARTUP_S = 3.5  # per run: a fresh process importing torch and gymnasium (measured here, 2-4 s)
@@ -50,12 +52,17 @@ def remember(p, seconds_per_step: float) -> None:
         pass  # an estimate cache is a convenience, never a reason to fail a run
 
 
-def calibrate(p) -> float:
+def remember_run(p: PreparedRun, doc: dict) -> None:
+    """After a run completed in one go: remember its cost per env step."""
+    loop_s = doc.get("loop_s")
+    if doc.get("skipped") or doc.get("status") != "complete" or doc.get("resumed_from"):
+        return
+    if loop_s and doc.get("env_steps"):
+        remember(p, float(loop_s) / max(1, int(doc["env_steps"])))
+
+
+def calibrate(p: PreparedRun) -> float:
     """Seconds per env step of one agent × env pair, from a short throwaway run."""
-    import copy
-
-    from seedsweep.runner.execution.run import execute, prepare
-
     cfg = copy.deepcopy(p.config)
     steps = min(int(cfg["steps"]), CALIBRATION_STEPS)
     with tempfile.TemporaryDirectory() as tmp:
@@ -63,7 +70,7 @@ def calibrate(p) -> float:
         cfg["eval"] = dict(cfg["eval"], every=steps, episodes=1)
         cfg["checkpoint"] = {"every": 0}
         t0 = time.perf_counter()
-        doc = execute(prepare(cfg), progress="quiet")
+        doc = execute(prepare(cfg))
         elapsed = doc.get("loop_s") or (time.perf_counter() - t0)
     return float(elapsed) / steps
 
@@ -90,4 +97,4 @@ def estimate_wall_time(to_run, workers: int) -> str:
         lanes[lanes.index(min(lanes))] += w
     where = ", ".join(f"{n} pair(s) from {s}" for s, n in sources.items() if n)
     return (f"seedsweep: {len(to_run)} runs on {workers} worker(s): estimated wall time "
-            f"{_fmt_eta(max(lanes))} ({where}; {STARTUP_S:.1f} s start-up per run)")
+            f"{fmt_eta(max(lanes))} ({where}; {STARTUP_S:.1f} s start-up per run)")

@@ -8,13 +8,16 @@ run folders for progress and waits for the jobs, with ``--timeout-min`` as a gua
 
 from __future__ import annotations
 
-import sys
+import logging
 import time
 from pathlib import Path
 
+import submitit
 from seedsweep.runner.execution import records
-from seedsweep.runner.launch.sweep_progress import SweepProgress
+from seedsweep.runner.launch.display import SweepProgress
 from seedsweep.runner.launch.workers import Outcome, mark_failed, run_job
+
+logger = logging.getLogger(__name__)
 
 # One run per job needs one core; memory is whatever a run needs (about 0.5 GB for the
 # shipped agents), settable with --slurm mem_gb=... to fit the cluster's nodes.
@@ -22,9 +25,7 @@ DEFAULTS = {"timeout_min": 24 * 60, "cpus_per_task": 1, "mem_gb": 0.5, "nodes": 
             "tasks_per_node": 1}
 
 
-def make_executor(folder: Path, cluster: str, params: dict):
-    import submitit
-
+def make_executor(folder: Path, cluster: str, params: dict) -> submitit.AutoExecutor:
     executor = submitit.AutoExecutor(folder=str(folder), cluster=cluster)
     settings = dict(DEFAULTS)
     generic = {k: v for k, v in params.items() if k in DEFAULTS or k == "slurm_partition"}
@@ -46,8 +47,8 @@ def run_submitit(planned, opts) -> Outcome:
     job_dir = planned[0].run_dir.parent / "_jobs" / f"{stamp}-{time.monotonic_ns() % 10**6}"
     executor = make_executor(job_dir, cluster, opts.slurm)
     with executor.batch():
-        jobs = [executor.submit(run_job, p.config, opts.retry_failed, "lines") for p in planned]
-    print(f"seedsweep: submitted {len(jobs)} {cluster} job(s); logs in {job_dir}", file=sys.stderr)
+        jobs = [executor.submit(run_job, p.config, opts.retry_failed) for p in planned]
+    logger.info("submitted %d %s job(s); logs in %s", len(jobs), cluster, job_dir)
     display = SweepProgress(planned, len(planned), mode=opts.progress)
     for p in planned:
         display.started(p.run_id)
@@ -94,7 +95,8 @@ def run_submitit(planned, opts) -> Outcome:
     return outcome
 
 
-def _read(run_dir: Path):
-    from seedsweep.runner.execution.run import read_run_json
-
-    return read_run_json(run_dir)
+def _read(run_dir: Path) -> dict | None:
+    try:
+        return records.read_run_json(run_dir)
+    except records.RecordError:
+        return None

@@ -8,15 +8,11 @@ will resume from its checkpoint when the sweep is started again); pending = plan
 
 from __future__ import annotations
 
-from collections import Counter
-from collections.abc import Sequence
 from pathlib import Path
 
 from filelock import Timeout
-
-from seedsweep.agents.base import ConfigError
-from seedsweep.runner.commands.options import OneLineParser
-from seedsweep.runner.execution.run import lock_for, read_run_json
+from seedsweep.runner.execution import records
+from seedsweep.runner.execution.run import lock_for
 from seedsweep.runner.launch.sweep import read_manifest
 
 
@@ -27,8 +23,16 @@ def run_states(folder: Path) -> list[dict]:
     rows = []
     for rid in sorted(ids):
         run_dir = folder / rid
-        doc = read_run_json(run_dir) if run_dir.is_dir() else None
         planned = manifest.get("runs", {}).get(rid, {})
+        try:
+            doc = records.read_run_json(run_dir) if run_dir.is_dir() else None
+        except records.RecordError as err:
+            doc = None
+            rows.append({"run_id": rid, "state": "corrupt", "env_steps": 0,
+                         "reason": f"{str(err).split(': ', 1)[-1]}; it resumes from its "
+                                   "checkpoints if it has any",
+                         "steps": planned.get("steps")})
+            continue
         if doc is None:
             state, reason, steps = "pending", "", 0
         else:
@@ -51,27 +55,3 @@ def _locked(run_dir: Path) -> bool:
         return True
     lock.release()
     return False
-
-
-def status_main(argv: Sequence[str]) -> int:
-    ap = OneLineParser("status", prog="seedsweep status",
-                                 description="done / running / failed / pending runs of a sweep")
-    ap.add_argument("folder", help="a sweep folder, e.g. results/demo")
-    args = ap.parse_args(list(argv))
-    folder = Path(args.folder)
-    if not folder.is_dir():
-        raise ConfigError("folder", f"{folder} is not a folder")
-    rows = run_states(folder)
-    if not rows:
-        raise ConfigError("folder", f"{folder} holds no runs (no sweep.json, no */run.json)")
-    counts = Counter(r["state"] for r in rows)
-    order = ["done", "running", "interrupted", "failed", "pending"]
-    print(f"{folder}: " + ", ".join(f"{counts.get(s, 0)} {s}" for s in order))
-    for r in rows:
-        if r["state"] != "done":
-            total = r["steps"] or "?"
-            line = f"  {r['state']:<12} {r['run_id']}  {r['env_steps']}/{total} steps"
-            if r["reason"]:
-                line += f"  — {r['reason']}"
-            print(line)
-    return 0

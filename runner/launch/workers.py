@@ -11,13 +11,18 @@ import multiprocessing as mp
 import os
 import queue as queue_mod
 import signal
+import sys
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from seedsweep.runner.execution.run import PreparedRun, read_run_json
-from seedsweep.runner.launch.sweep_progress import SweepProgress
+from seedsweep.runner.execution import logs, records
+from seedsweep.runner.execution.prepare import PreparedRun, prepare
+from seedsweep.runner.execution.progress import RunListener
+from seedsweep.runner.execution.run import RunBusy, execute, interrupt_on_sigterm
+from seedsweep.runner.launch import estimate
+from seedsweep.runner.launch.display import QueueProgress, RunProgress, SweepProgress
 
 EXIT_BUSY = 3
 
@@ -50,29 +55,29 @@ def default_workers() -> int:
     return max(1, n)
 
 
-def run_job(config: dict[str, Any], retry_failed: bool = False, progress: Any = "lines") -> dict:
+def run_job(config: dict[str, Any], retry_failed: bool = False,
+            listener: RunListener | None = None) -> dict:
     """Run one resolved config to completion in this process (local worker or cluster job).
 
     Skip, resume and locking are the same wherever it runs. Returns the final run.json, or
     ``{"status": "busy"}`` if another process holds the run's lock.
     """
-    from seedsweep.runner.execution.run import RunBusy, execute, interrupt_on_sigterm, prepare
-
+    logs.setup()
     interrupt_on_sigterm()
     prepared = prepare(config)
     try:
-        return execute(prepared, progress=progress, retry_failed=retry_failed)
+        doc = execute(prepared, listener or RunProgress(prepared.run_id, int(config["steps"]),
+                                                       mode="lines"), retry_failed=retry_failed)
     except RunBusy:
         return {"run_id": prepared.run_id, "status": "busy"}
+    estimate.remember_run(prepared, doc)
+    return doc
 
 
-def _worker(config: dict[str, Any], retry_failed: bool, messages) -> None:
-    import sys
-
-    from seedsweep.runner.launch.progress import QueueProgress
-
+def _worker(config: dict[str, Any], run_id: str, retry_failed: bool, messages) -> None:
     try:
-        doc = run_job(config, retry_failed, progress=QueueProgress(messages))
+        doc = run_job(config, retry_failed,
+                      QueueProgress(messages).for_run(run_id, int(config["steps"])))
     except BaseException:  # the run recorded why in its run.json and error.log
         sys.exit(1)
     sys.exit(EXIT_BUSY if doc.get("status") == "busy" else 0)
@@ -90,7 +95,8 @@ def run_local(planned: list[PreparedRun], workers: int, opts) -> Outcome:
         while pending or running:
             while pending and len(running) < workers:
                 p = pending.pop(0)
-                proc = ctx.Process(target=_worker, args=(p.config, opts.retry_failed, messages),
+                proc = ctx.Process(target=_worker,
+                                   args=(p.config, p.run_id, opts.retry_failed, messages),
                                    name=p.run_id, daemon=False)
                 proc.start()
                 running[p.run_id] = (proc, p)
@@ -130,7 +136,10 @@ def _drain(messages, display: SweepProgress, timeout: float) -> None:
 
 def _settle(exitcode: int | None, p: PreparedRun, outcome: Outcome, display: SweepProgress) -> None:
     """Read what the finished process left on disk; a dead worker's run is marked failed."""
-    doc = read_run_json(p.run_dir) or {}
+    try:
+        doc = records.read_run_json(p.run_dir) or {}
+    except records.RecordError:
+        doc = {}
     status = doc.get("status")
     if exitcode == EXIT_BUSY:
         outcome.busy.append(p.run_id)
@@ -161,9 +170,10 @@ def _death_reason(exitcode: int | None) -> str:
 
 def mark_failed(p: PreparedRun, reason: str) -> None:
     """Record the failure of a run whose own process could not (it died)."""
-    from seedsweep.runner.execution import records
-
-    doc = read_run_json(p.run_dir) or {"run_id": p.run_id}
+    try:
+        doc = records.read_run_json(p.run_dir) or {"run_id": p.run_id}
+    except records.RecordError:
+        doc = {"run_id": p.run_id}
     doc.update(status="failed", error=reason, finished=records.now_iso())
     records.atomic_write_json(p.run_dir / "run.json", doc)
     records.atomic_write_text(p.run_dir / "error.log", reason + "\n")

@@ -14,9 +14,11 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-from matplotlib import rc_context  # noqa: E402
+from matplotlib import (
+    colormaps,
+    rc_context,  # noqa: E402
+)
 from matplotlib.figure import Figure  # noqa: E402
-
 from seedsweep.runner.analysis.stats import STATISTICS  # noqa: E402
 
 STAT_TITLES = {"iqm": "IQM", "mean": "Mean", "median": "Median",
@@ -26,8 +28,6 @@ RC = {"svg.hashsalt": "seedsweep", "font.size": 9, "axes.spines.top": False,
 
 
 def _colors(names: list[str]) -> dict[str, Any]:
-    from matplotlib import colormaps
-
     cmap = colormaps["tab10"]
     return {n: cmap(i % 10) for i, n in enumerate(names)}
 

@@ -1,0 +1,216 @@
+"""Live displays of launched runs: one run's bar or log lines, and a whole sweep's table.
+
+On a terminal they are rich live displays; otherwise plain log lines. A run in a worker
+process sends its progress over a queue (:class:`QueueProgress`) to the sweep's display.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+import time
+from typing import Any, TextIO
+
+from rich.console import Console
+from rich.live import Live
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
+from rich.table import Table
+
+
+def fmt_eta(seconds: float) -> str:
+    if not math.isfinite(seconds):
+        return "?"
+    seconds = int(seconds)
+    h, rem = divmod(seconds, 3600)
+    m, s = divmod(rem, 60)
+    return f"{h}:{m:02d}:{s:02d}"
+
+
+class RunProgress:
+    """Shows env steps of the budget, last evaluation mean ± s.e., steps/s and ETA."""
+
+    def __init__(self, label: str, total: int, mode: str = "auto", stream: TextIO | None = None,
+                 line_every_s: float = 10.0):
+        self.label = label
+        self.total = total
+        self.stream = stream or sys.stderr
+        if mode == "auto":
+            mode = "bar" if self.stream.isatty() else "lines"
+        self.mode = mode
+        self.line_every_s = line_every_s
+        self.start = time.perf_counter()
+        self._last_line = self.start
+        self._eval = "eval: -"
+        self._bar = None
+        if self.mode == "bar":
+            self._bar = Progress(
+                TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+                TextColumn("{task.fields[eval]}"), TextColumn("{task.fields[rate]}"),
+                TextColumn("ETA {task.fields[eta]}"),
+                console=Console(file=self.stream), transient=False,
+            )
+            self._task = self._bar.add_task(label, total=total, eval=self._eval, rate="", eta="?")
+            self._bar.start()
+
+    def rate(self, steps: int) -> float:
+        elapsed = time.perf_counter() - self.start
+        return steps / elapsed if elapsed > 0 else 0.0
+
+    def update(self, steps: int, steps_per_s: float | None = None) -> None:
+        if self.mode == "quiet":
+            return
+        rate = self.rate(steps) if steps_per_s is None else steps_per_s
+        eta = (self.total - steps) / rate if rate > 0 else math.inf
+        if self._bar is not None:
+            self._bar.update(self._task, completed=steps, eval=self._eval,
+                             rate=f"{rate:,.0f} steps/s", eta=fmt_eta(eta))
+            return
+        now = time.perf_counter()
+        if now - self._last_line >= self.line_every_s or steps >= self.total:
+            self._last_line = now
+            pct = 100.0 * steps / self.total
+            print(f"[{self.label}] {steps}/{self.total} steps ({pct:.0f}%) | {self._eval} | "
+                  f"{rate:,.0f} steps/s | ETA {fmt_eta(eta)}", file=self.stream, flush=True)
+
+    def evaluation(self, steps: int, mean: float, stderr: float) -> None:
+        se = "n/a" if not math.isfinite(stderr) else f"{stderr:.2f}"
+        self._eval = f"eval: {mean:.2f} ± {se}"
+        if self.mode == "lines":
+            print(f"[{self.label}] eval at {steps} steps: return {mean:.2f} ± {se} (s.e.)",
+                  file=self.stream, flush=True)
+        self.update(steps)
+
+    def close(self) -> None:
+        if self._bar is not None:
+            self._bar.stop()
+
+
+class QueueProgress:
+    """Progress of a run in a worker process, sent to the sweep's display (throttled)."""
+
+    def __init__(self, messages, every_s: float = 0.5):
+        self.messages = messages
+        self.every_s = every_s
+
+    def for_run(self, label: str, total: int) -> _QueueRun:
+        return _QueueRun(self.messages, label, total, self.every_s)
+
+
+class _QueueRun:
+    def __init__(self, messages, label: str, total: int, every_s: float):
+        self.messages, self.label, self.total, self.every_s = messages, label, total, every_s
+        self._last = 0.0
+        self._eval = None
+
+    def update(self, steps: int, steps_per_s: float | None = None) -> None:
+        now = time.perf_counter()
+        if now - self._last >= self.every_s or steps >= self.total:
+            self._last = now
+            self.messages.put({"run_id": self.label, "steps": steps, "total": self.total,
+                               "rate": steps_per_s or 0.0, "eval": self._eval})
+
+    def evaluation(self, steps: int, mean: float, stderr: float) -> None:
+        self._eval = (mean, stderr)
+        self._last = 0.0
+        self.update(steps)
+
+    def close(self) -> None:
+        pass
+
+
+class SweepProgress:
+    def __init__(self, planned, workers: int, mode: str = "auto", stream=None,
+                 line_every_s: float = 15.0):
+        self.stream = stream or sys.stderr
+        if mode == "auto":
+            mode = "bar" if self.stream.isatty() else "lines"
+        self.mode = mode
+        self.workers = workers
+        self.total_steps = {p.run_id: int(p.config["steps"]) for p in planned}
+        self.steps: dict[str, int] = {}
+        self.rates: dict[str, float] = {}
+        self.evals: dict[str, Any] = {}
+        self.running: set[str] = set()
+        self.done: list[str] = []
+        self.failed: list[str] = []
+        self.busy: list[str] = []
+        self.start = time.monotonic()
+        self.line_every_s = line_every_s
+        self._last_line = self.start
+        self._live = None
+        if self.mode == "bar":
+            self._live = Live(self._table(), console=Console(file=self.stream),
+                              refresh_per_second=4, transient=False)
+            self._live.start()
+
+    # -- events ----------------------------------------------------------------------
+    def started(self, run_id: str) -> None:
+        self.running.add(run_id)
+        self.steps.setdefault(run_id, 0)
+
+    def message(self, msg: dict[str, Any]) -> None:
+        rid = msg["run_id"]
+        self.steps[rid] = msg["steps"]
+        self.rates[rid] = msg["rate"]
+        if msg.get("eval") is not None:
+            self.evals[rid] = msg["eval"]
+
+    def finished(self, run_id: str, status: str, reason: str = "") -> None:
+        self.running.discard(run_id)
+        self.rates.pop(run_id, None)
+        {"complete": self.done, "failed": self.failed, "busy": self.busy}[status].append(run_id)
+        if status == "complete":
+            self.steps[run_id] = self.total_steps[run_id]
+        if self.mode == "lines":
+            extra = f": {reason}" if reason else ""
+            print(f"seedsweep: {status}: {run_id}{extra} | {self.summary()}", file=self.stream,
+                  flush=True)
+
+    # -- rendering ---------------------------------------------------------------------
+    def pending(self) -> int:
+        return (len(self.total_steps) - len(self.running) - len(self.done) - len(self.failed)
+                - len(self.busy))
+
+    def rate(self) -> float:
+        """Env steps per second of the whole sweep since it started (all runs together)."""
+        elapsed = time.monotonic() - self.start
+        return sum(self.steps.values()) / elapsed if elapsed > 0 else 0.0
+
+    def eta_s(self) -> float:
+        rate = self.rate()
+        left_running = sum(self.total_steps[r] - self.steps.get(r, 0) for r in self.running)
+        ended = set(self.done) | set(self.failed) | set(self.busy) | self.running
+        left_pending = sum(t for r, t in self.total_steps.items() if r not in ended)
+        if rate <= 0:
+            return math.inf
+        return (left_running + left_pending) / rate
+
+    def summary(self) -> str:
+        rate = self.rate()
+        return (f"done {len(self.done)} | running {len(self.running)} | failed {len(self.failed)}"
+                f" | pending {self.pending()} | {rate:,.0f} steps/s | ETA {fmt_eta(self.eta_s())}")
+
+    def _table(self):
+        table = Table(title=self.summary(), title_justify="left", expand=False)
+        for col in ("run", "steps", "last eval", "steps/s"):
+            table.add_column(col)
+        for rid in sorted(self.running):
+            ev = self.evals.get(rid)
+            ev_text = "-" if ev is None else f"{ev[0]:.1f} ± {ev[1]:.1f}"
+            table.add_row(rid, f"{self.steps.get(rid, 0):,}/{self.total_steps[rid]:,}", ev_text,
+                          f"{self.rates.get(rid, 0):,.0f}")
+        return table
+
+    def refresh(self) -> None:
+        if self._live is not None:
+            self._live.update(self._table())
+        elif self.mode == "lines":
+            now = time.monotonic()
+            if now - self._last_line >= self.line_every_s:
+                self._last_line = now
+                print(f"seedsweep: {self.summary()}", file=self.stream, flush=True)
+
+    def close(self) -> None:
+        if self._live is not None:
+            self._live.update(self._table())
+            self._live.stop()
