@@ -36,6 +36,7 @@ simulation can test thousands of data sets in one call (:func:`permutation_p_val
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -217,9 +218,26 @@ def _unique_rows(ids: np.ndarray, radices: list[int]) -> tuple[np.ndarray, np.nd
     return combos, which.ravel()
 
 
+@functools.lru_cache(maxsize=256)
+def _tie_free_law(n: int, m: int) -> np.ndarray:
+    """Law of 2U without ties: it depends on the seed counts only, so it is computed once."""
+    law = env_null_counts(2 * np.arange(1, n + m + 1), n)
+    law.flags.writeable = False
+    return law
+
+
+@functools.lru_cache(maxsize=64)
+def _tie_free_tail(design: tuple[tuple[int, int], ...]) -> np.ndarray:
+    """Tail table of T for data without ties, per design ((n_j, m_j) per env)."""
+    _, weights = _lattice([n * m for n, m in design])
+    tail = _combined_tail([_tie_free_law(n, m) for n, m in design], weights)
+    tail.flags.writeable = False
+    return tail
+
+
 def _exact_p_values(xs: list[np.ndarray], ys: list[np.ndarray]) -> np.ndarray:
     """Exact two-sided p-values for every batch element; null laws are computed once per
-    distinct tie pattern (runs without ties all share one)."""
+    distinct tie pattern (pattern 0, no ties, is cached across calls)."""
     ns = [x.shape[-1] for x in xs]
     ms = [y.shape[-1] for y in ys]
     lcm, weights = _lattice([n * m for n, m in zip(ns, ms, strict=True)])
@@ -227,17 +245,29 @@ def _exact_p_values(xs: list[np.ndarray], ys: list[np.ndarray]) -> np.ndarray:
     size = int(np.prod(batch, dtype=np.int64))
     index = np.zeros(size, dtype=np.int64)
     law_ids = np.empty((size, len(xs)), dtype=np.int64)
-    env_laws: list[list[np.ndarray]] = []
+    env_keys: list[np.ndarray] = []
     for j, (x, y) in enumerate(zip(xs, ys, strict=True)):
         codes = _rank_codes(x, y).reshape(size, -1)
         index += _doubled_u(codes, ns[j]) * weights[j]
         keys, law_ids[:, j] = _tie_patterns(codes)
-        env_laws.append([env_null_counts(k, ns[j]) for k in keys])
-    combos, which = _unique_rows(law_ids, [len(laws) for laws in env_laws])
+        env_keys.append(keys)
+    laws: dict[tuple[int, int], np.ndarray] = {}
+
+    def law(j: int, k: int) -> np.ndarray:
+        if k == 0:
+            return _tie_free_law(ns[j], ms[j])
+        if (j, k) not in laws:
+            laws[(j, k)] = env_null_counts(env_keys[j][k], ns[j])
+        return laws[(j, k)]
+
+    combos, which = _unique_rows(law_ids, [len(keys) for keys in env_keys])
     distance = np.abs(index - lcm * len(xs))
     p = np.empty(size)
     for c, combo in enumerate(combos):
-        tail = _combined_tail([env_laws[j][k] for j, k in enumerate(combo)], weights)
+        if not np.any(combo):
+            tail = _tie_free_tail(tuple(zip(ns, ms, strict=True)))
+        else:
+            tail = _combined_tail([law(j, k) for j, k in enumerate(combo)], weights)
         rows = which == c
         p[rows] = tail[distance[rows]]
     return p.reshape(batch)

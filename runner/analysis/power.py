@@ -29,11 +29,11 @@ per env, how often would the verdict's test reject?" for a difference the user s
   SD at its one-sided upper confidence bound (level ``sd_level``, 0.8 by default) from the
   chi-square law of the sample variance, ``s * sqrt(df / chi2.ppf(1 - level, df))``.
 * p-values in the simulation: the exact permutation law up to :data:`EXACT_SEEDS` seeds per
-  agent per env, and beyond for comparisons without ties; only tied comparisons beyond it use
+  agent per env, and up to :data:`EXACT_TIE_FREE_SEEDS` for comparisons without ties; beyond,
   the normal approximation of the same statistic (each tie pattern would need its own exact
-  law). There its decisions agree with the permutation test's in >= 97% of capped-score
-  comparisons (it rejects slightly more often: up to ~1.5 points of power with one env);
-  tests/test_inference.py checks the agreement.
+  law, and large exact counts cost seconds). There its decisions agree with the permutation
+  test's in >= 97% of capped-score comparisons (it rejects slightly more often: up to ~1.5
+  points of power with one env) and >= 99% without ties; tests/test_inference.py checks it.
 * Common random numbers: one noise matrix (reps, max_seeds) per env and agent, of which the
   first n columns are used, so the power curve is smooth in n and the search (doubling, then
   bisection) is stable. Seed counts below :func:`permutation.seeds_to_reach` have power 0.
@@ -64,6 +64,7 @@ MAX_SEEDS_LIMIT = 1000  # the noise matrices are (reps, max_seeds): bound their 
 MODELS = ("auto", "normal", "residuals")
 AUTO_RESIDUAL_PILOTS = 10
 EXACT_SEEDS = 20
+EXACT_TIE_FREE_SEEDS = 60
 
 Strata = Sequence[np.ndarray]
 
@@ -151,11 +152,14 @@ def _unit_noise(x: np.ndarray, y: np.ndarray, model: str, shape: tuple[int, int]
 
 
 def _p_values(xs: list[np.ndarray], ys: list[np.ndarray], n: int) -> np.ndarray:
-    """The test's p-values for simulated comparisons (rows): exact up to EXACT_SEEDS seeds and
-    for rows without ties (one null law serves them all); the normal approximation only for
-    tied rows beyond EXACT_SEEDS, where each tie pattern would need its own exact law."""
+    """The test's p-values for simulated comparisons (rows): exact up to EXACT_SEEDS seeds, and
+    up to EXACT_TIE_FREE_SEEDS for rows without ties (one cached null law serves them all);
+    the normal approximation otherwise (tied rows would each need their own exact law, and
+    beyond EXACT_TIE_FREE_SEEDS the exact count costs seconds while the two agree closely)."""
     if n <= EXACT_SEEDS:
         return permutation.permutation_p_values(xs, ys)
+    if n > EXACT_TIE_FREE_SEEDS:
+        return permutation.normal_p_values(xs, ys)
     tied = np.zeros(xs[0].shape[0], dtype=bool)
     for x, y in zip(xs, ys, strict=True):
         pooled = np.sort(np.concatenate([x, y], axis=1), axis=1)
