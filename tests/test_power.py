@@ -10,7 +10,12 @@ import json
 import numpy as np
 import pytest
 from scipy import stats as sps
-from seedsweep.runner.analysis.power import bootstrap_power, seeds_needed, shift_to_difference
+from seedsweep.runner.analysis.power import (
+    bootstrap_power,
+    seeds_needed,
+    shift_to_difference,
+    unbiased_spread,
+)
 from seedsweep.runner.commands.plan_seeds import main as plan_seeds_main
 
 from tests.test_compare import make_sweep, snapshot, write_run
@@ -32,7 +37,8 @@ def normal_pilots():
     """Large normal pilot samples, so their empirical distributions are nearly normal."""
     rng = np.random.default_rng(1)
     x, y = rng.normal(0.0, 1.0, 4000), rng.normal(0.0, 2.0, 4000)
-    return x, y, float(x.std()), float(y.std())  # ddof=0: the spread of the resampled law
+    # ddof=1: the resampled pilots are rescaled to the unbiased variance (power.unbiased_spread)
+    return x, y, float(x.std(ddof=1)), float(y.std(ddof=1))
 
 
 @pytest.mark.parametrize("n", [4, 8, 16, 32])
@@ -74,6 +80,14 @@ def test_seed_plan_beyond_max_and_determinism(normal_pilots):
     again = seeds_needed(x, y, 0.2, 0.8, 0.05, np.random.default_rng(5), max_seeds=20,
                          resamples=1000)
     assert again == plan
+
+
+def test_resampled_pilots_have_the_unbiased_variance():
+    x = np.array([1.0, 2.0, 6.0])
+    spread = unbiased_spread(x)
+    # reference: numpy's ddof=1 variance; the resampled law (ddof=0 of the spread values)
+    # must have it, and the mean is kept
+    assert spread.var() == pytest.approx(x.var(ddof=1)) and spread.mean() == pytest.approx(3.0)
 
 
 def test_shift_and_refusals():
@@ -124,7 +138,7 @@ def test_plan_seeds_end_to_end(tmp_path, capsys):
     assert plan["candidate_mean"] == pytest.approx(finals["alpha"].mean())  # numpy mean
     d = finals["alpha"].mean() - finals["beta"].mean()
     assert plan["difference"] == pytest.approx(d) and plan["difference_source"] == "observed"
-    sx, sy = finals["alpha"].std(), finals["beta"].std()  # ddof=0: the resampled spread
+    sx, sy = finals["alpha"].std(ddof=1), finals["beta"].std(ddof=1)  # the resampled spread
     n = plan["seeds_per_agent"]
     assert analytic_power(sx, sy, n, d, 0.05) >= 0.8 - 0.04  # tolerance as above
     assert analytic_power(sx, sy, n - 1, d, 0.05) <= 0.8 + 0.04
