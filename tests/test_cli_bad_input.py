@@ -36,6 +36,7 @@ CASES = [
      "agent.advantage_lambda: must be in [0, 1]"),
     (["agent=actor_critic", "agent.num_envs=0"], "agent.num_envs: must be >= 1"),
     (["agent=reinforce", "agent.episodes_per_update=0"], "agent.episodes_per_update: must be >= 1"),
+    (["agent=ppo", "agent.ratio_clip=1.5"], "agent.ratio_clip: must be in (0, 1)"),
     (["agent=reinforce", "env.id=tests.toy_envs:MultiDiscreteActions", "env.max_episode_steps=10"],
      "agent: reinforce does not support"),
     (["agent=actor_critic", "env.id=tests.toy_envs:MultiDiscreteActions",

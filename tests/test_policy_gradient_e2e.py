@@ -1,4 +1,4 @@
-"""Short real runs of both policy-gradient agents through the runner (runner.api.run)."""
+"""Short real runs of the policy-gradient agents through the runner (runner.api.run)."""
 
 from __future__ import annotations
 
@@ -10,15 +10,16 @@ import pytest
 import torch
 from seedsweep.agents.actor_critic import ActorCritic
 from seedsweep.agents.base import ConfigError, build_config
+from seedsweep.agents.ppo import PPO
 from seedsweep.agents.reinforce import Reinforce
 from seedsweep.runner.launch.api import run
 
 STEPS, EVERY, EPISODES = 2000, 1000, 2  # multiples of num_envs (1 and 8): evals at 1000, 2000
-CLASSES = {"reinforce": Reinforce, "actor_critic": ActorCritic}
+CLASSES = {"reinforce": Reinforce, "actor_critic": ActorCritic, "ppo": PPO}
 ENV_IDS = {"cartpole": "CartPole-v1", "pendulum": "Pendulum-v1"}
 
 
-@pytest.mark.parametrize("agent", ["reinforce", "actor_critic"])
+@pytest.mark.parametrize("agent", ["reinforce", "actor_critic", "ppo"])
 @pytest.mark.parametrize("env", ["cartpole", "pendulum"])
 def test_short_run_completes_with_the_protocols_records(tmp_path, agent, env):
     run_dir = run([f"agent={agent}", f"env={env}", "seed=1", f"steps={STEPS}",

@@ -1,0 +1,387 @@
+"""Proximal policy optimisation with the clipped surrogate objective, PPO (Schulman, Wolski,
+Dhariwal, Radford & Klimov 2017, "Proximal Policy Optimization Algorithms").
+
+``num_envs`` envs are stepped together for ``rollout_steps`` vector steps with the current
+policy; the agent then makes ``passes_per_rollout`` passes over the ``rollout_steps ×
+num_envs`` samples, each pass in ``minibatches_per_pass`` shuffled minibatches (the order
+drawn from the agent's seeded generator), one Adam step per minibatch on
+
+``loss = −mean(min(ρ·A, clip(ρ, 1 − ε, 1 + ε)·A)) + value_weight·L_V − entropy_weight·mean(H)``
+
+with ``ρ = π(a|s) / π_old(a|s)`` and ``ε = ratio_clip`` (the paper's eq. 7 and eq. 9, with
+its ``c1, c2`` as ``value_weight, entropy_weight``). ``L_V`` is the squared error of the
+value against the λ-return ``R = A + V_old``; with ``value_clip`` set it is the larger of
+that error and the error of the prediction held within ``±value_clip`` of ``V_old``, the
+same pessimistic bound for the value (common practice, no source).
+
+* Advantages: GAE(γ, λ) (Schulman et al. 2016) from :func:`returns.gae`; truncation
+  bootstraps from ``V`` of the episode's final observation, termination does not.
+* ``standardize = "advantages"`` standardises the advantages once per rollout, over all its
+  samples, before the passes: every minibatch then weighs its samples on the same scale,
+  and a small minibatch is not re-centred on its own noisy mean.
+* ``π_old`` is the network that acted; nothing changes it during the rollout. Its
+  log-probabilities are computed before the first Adam step, minibatch by minibatch in the
+  first pass's order, so the first minibatch sees exactly the arithmetic of its own
+  forward pass: its ratio is exactly 1.
+* Gradient-norm clip: of the whole network with a shared torso, else of the policy and of
+  the value network separately (as in actor_critic: a large value gradient would otherwise
+  shrink the policy step).
+* ``lr_decay_steps``: the learning rate of an update is ``lr·max(0, 1 − s/lr_decay_steps)``
+  with ``s`` the env steps (all envs) observed before its rollout began; null keeps ``lr``.
+  The agent does not know the run's budget, so this is a number of env steps.
+
+Scalars of an update, means over its minibatch steps: policy_loss, value_loss, entropy,
+approx_kl (``mean((ρ − 1) − log ρ)``, a non-negative estimate of KL(π_old‖π)), clip_fraction
+(share of samples with ``ρ`` outside ``[1 − ε, 1 + ε]``), grad_norm (before clipping; of the
+policy when the networks are separate, then also value_grad_norm), and the lr used.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any, Literal
+
+import numpy as np
+import torch
+from gymnasium import spaces
+from seedsweep.agents.base import Agent, Step, require
+from seedsweep.agents.common.distributions import (
+    POLICY_OUT_GAIN,
+    VALUE_OUT_GAIN,
+    ActionSampler,
+    PolicyHead,
+    PolicyNetworkConfig,
+    policy_supports,
+)
+from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp
+from seedsweep.agents.common.optim import adam, clip_grad_norm
+from seedsweep.agents.common.returns import gae
+from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
+
+
+class PPO(Agent):
+    action_spaces = (spaces.Discrete, spaces.Box)
+
+    @classmethod
+    def supports(cls, action_space: spaces.Space) -> bool:
+        return policy_supports(action_space)
+
+    @dataclass
+    class Config(PolicyNetworkConfig):
+        gamma: float = 0.99
+        num_envs: int = 8
+        vector_mode: Literal["sync", "async"] = "sync"
+        rollout_steps: int = 128
+        advantage_lambda: float = 0.95
+        passes_per_rollout: int = 8
+        minibatches_per_pass: int = 8
+        ratio_clip: float = 0.2
+        value_clip: float | None = None
+        lr: float = 0.003
+        lr_decay_steps: int | None = None
+        adam_eps: float = 1e-5
+        value_weight: float = 0.5
+        entropy_weight: float = 0.0
+        grad_clip_norm: float | None = 0.5
+        standardize: Literal["none", "advantages"] = "advantages"
+        shared_torso: bool = False
+
+        def __post_init__(self) -> None:
+            require("gamma", self.gamma, 0.0 < self.gamma <= 1.0, "in (0, 1]")
+            require("num_envs", self.num_envs, self.num_envs >= 1, ">= 1")
+            require("rollout_steps", self.rollout_steps, self.rollout_steps >= 1, ">= 1")
+            require("advantage_lambda", self.advantage_lambda,
+                    0.0 <= self.advantage_lambda <= 1.0, "in [0, 1]")
+            require("passes_per_rollout", self.passes_per_rollout,
+                    self.passes_per_rollout >= 1, ">= 1")
+            samples = self.rollout_steps * max(self.num_envs, 1)
+            require("minibatches_per_pass", self.minibatches_per_pass,
+                    1 <= self.minibatches_per_pass <= samples,
+                    f"in [1, rollout_steps × num_envs = {samples}]")
+            require("ratio_clip", self.ratio_clip, 0.0 < self.ratio_clip < 1.0, "in (0, 1)")
+            require("value_clip", self.value_clip,
+                    self.value_clip is None or _finite_above(self.value_clip, 0.0),
+                    "a finite number > 0, or null (no value clipping)")
+            require("lr", self.lr, _finite_above(self.lr, 0.0), "a finite number > 0")
+            require("lr_decay_steps", self.lr_decay_steps,
+                    self.lr_decay_steps is None or self.lr_decay_steps >= 1,
+                    ">= 1 env steps, or null (constant lr)")
+            require("adam_eps", self.adam_eps, _finite_above(self.adam_eps, 0.0),
+                    "a finite number > 0")
+            require("value_weight", self.value_weight,
+                    math.isfinite(self.value_weight) and self.value_weight >= 0,
+                    "a finite number >= 0")
+            require("entropy_weight", self.entropy_weight,
+                    math.isfinite(self.entropy_weight) and self.entropy_weight >= 0,
+                    "a finite number >= 0")
+            require("grad_clip_norm", self.grad_clip_norm,
+                    self.grad_clip_norm is None or _finite_above(self.grad_clip_norm, 0.0),
+                    "a finite number > 0, or null (no clipping)")
+            require("gaussian_log_std_start", self.gaussian_log_std_start,
+                    math.isfinite(self.gaussian_log_std_start), "a finite number")
+            self.check_network()
+
+    def __init__(self, observation_space, action_space, config, seed):
+        super().__init__(observation_space, action_space, config, seed)
+        c = config
+        self.obs_dim = flat_dim(observation_space)
+        self.rng, self.gen = make_generators(seed)
+        self.head = PolicyHead(action_space, c.gaussian_std, c.gaussian_log_std_start,
+                               c.gaussian_squash)
+        k = self.head.out_dim
+        if c.shared_torso:
+            self.net = mlp(self.obs_dim, c.hidden, k + 1, self.gen, c.activation, c.init,
+                           VALUE_OUT_GAIN)
+            if c.init == "orthogonal":  # policy rows of the joint output layer: small gain
+                with torch.no_grad():
+                    self.net[-1].weight[:k] *= POLICY_OUT_GAIN / VALUE_OUT_GAIN
+            self.value_net = None
+        else:
+            self.net = mlp(self.obs_dim, c.hidden, k, self.gen, c.activation, c.init,
+                           POLICY_OUT_GAIN)
+            self.value_net = mlp(self.obs_dim, c.hidden, 1, self.gen, c.activation, c.init,
+                                 VALUE_OUT_GAIN)
+        self._np_policy = NumpyMLP(self.net)
+        self.policy_params = [*self.net.parameters(), *self.head.parameters()]
+        self.params = list(self.policy_params)
+        if self.value_net is not None:
+            self.params += list(self.value_net.parameters())
+        self.opt = adam(self.params, c.lr, c.adam_eps)
+        self.sampler = ActionSampler(self.head, self.gen)
+        self._alloc_rollout()
+        self.updates = 0
+        self.env_steps = 0  # observed by this agent, all envs: the lr schedule's clock
+
+    # -- acting -----------------------------------------------------------------------------
+    def act(self, obs: np.ndarray, explore: bool) -> np.ndarray:
+        out = self._np_policy(np.asarray(obs, dtype=np.float32).reshape(len(obs), -1))
+        return self.sampler.act(out[:, : self.head.out_dim], explore)
+
+    # -- learning ---------------------------------------------------------------------------
+    def observe(self, step: Step) -> dict[str, float]:
+        t, n = self._t, self.config.num_envs
+        if len(step.rewards) != n:
+            raise ValueError(f"expected {n} envs per step (num_envs), got {len(step.rewards)}")
+        r = self._rollout
+        r["obs"][t] = np.asarray(step.obs, dtype=np.float32).reshape(n, -1)
+        r["actions"][t] = _as_actions(step.actions, self.head, n)
+        if self.sampler.needs_pre_squash:
+            r["pre"][t] = self.sampler.pre_squash_for(r["actions"][t])
+        r["rewards"][t] = step.rewards
+        r["terminated"][t] = step.terminated
+        r["truncated"][t] = step.truncated
+        r["next_obs"][t] = np.asarray(step.next_obs, dtype=np.float32).reshape(n, -1)
+        self._t += 1
+        self.env_steps += n
+        if self._t == self.config.rollout_steps:
+            return self._update()
+        return {}
+
+    def current_lr(self) -> float:
+        """The learning rate of the next update (linear decay over env steps, if set)."""
+        c = self.config
+        if c.lr_decay_steps is None:
+            return c.lr
+        started = self.env_steps - self._t * c.num_envs  # when the current rollout began
+        return c.lr * max(0.0, 1.0 - started / c.lr_decay_steps)
+
+    def rollout_batch(self) -> dict[str, Any]:
+        """The stored rollout (first ``t`` steps) flattened, with old values, GAE advantages
+        and λ-returns (advantages not yet standardised)."""
+        c, T = self.config, self._t
+        if T == 0:
+            raise ValueError("the rollout is empty; observe at least one step first")
+        r = {k: v[:T] for k, v in self._rollout.items()}
+        n = c.num_envs
+        with torch.no_grad():
+            values = self._values(torch.from_numpy(r["obs"].reshape(T * n, -1)))
+            values = values.double().numpy().reshape(T, n)
+            next_values = np.zeros_like(values)
+            next_values[:-1] = values[1:]
+            need = r["truncated"].copy()  # a truncated episode continues from its final obs
+            need[-1] = True  # the rollout's end bootstraps from the next obs
+            if need.any():
+                x = torch.from_numpy(r["next_obs"][need])
+                next_values[need] = self._values(x).double().numpy()
+        advantages = gae(r["rewards"], values, next_values, r["terminated"], r["truncated"],
+                         c.gamma, c.advantage_lambda)
+        returns = advantages + values
+        flat = T * n
+        return {
+            "obs": torch.from_numpy(r["obs"].reshape(flat, -1)),
+            "actions": torch.from_numpy(r["actions"].reshape(flat, *r["actions"].shape[2:])),
+            "pre": torch.from_numpy(r["pre"].reshape(flat, -1)) if "pre" in r else None,
+            "values": torch.from_numpy(values.reshape(flat).astype(np.float32)),
+            "advantages": torch.from_numpy(advantages.reshape(flat).astype(np.float32)),
+            "returns": torch.from_numpy(returns.reshape(flat).astype(np.float32)),
+        }
+
+    def minibatch_losses(self, batch: dict[str, Any], idx: torch.Tensor) -> dict[str, Any]:
+        """Loss terms on the samples ``idx`` of a prepared batch (with ``old_log_prob``),
+        plus the ratio and its diagnostics (detached)."""
+        c = self.config
+        log_prob, entropy, values = self._score(batch, idx)
+        loss, ratio = clipped_surrogate(log_prob, batch["old_log_prob"][idx],
+                                        batch["advantages"][idx], c.ratio_clip)
+        v_loss = value_loss(values, batch["values"][idx], batch["returns"][idx], c.value_clip)
+        with torch.no_grad():
+            log_ratio = log_prob - batch["old_log_prob"][idx]
+            approx_kl = (torch.expm1(log_ratio) - log_ratio).mean()
+            clip_fraction = ((ratio - 1.0).abs() > c.ratio_clip).float().mean()
+        return {"policy_loss": loss, "value_loss": v_loss, "entropy": entropy.mean(),
+                "approx_kl": approx_kl, "clip_fraction": clip_fraction,
+                "ratio": ratio.detach()}
+
+    def _update(self) -> dict[str, float]:
+        c = self.config
+        lr = self.current_lr()
+        batch = self.rollout_batch()
+        self._t = 0
+        for group in self.opt.param_groups:
+            group["lr"] = lr
+        adv = batch["advantages"]
+        if c.standardize == "advantages" and len(adv) > 1:
+            batch["advantages"] = (adv - adv.mean()) / (adv.std(unbiased=False) + 1e-8)
+        size = len(adv)
+        passes = [[torch.from_numpy(ix) for ix in
+                   np.array_split(self.rng.permutation(size), c.minibatches_per_pass)]
+                  for _ in range(c.passes_per_rollout)]
+        old = torch.empty(size)
+        with torch.no_grad():  # π_old, in the first pass's minibatches (see module doc)
+            for idx in passes[0]:
+                old[idx] = self._score(batch, idx)[0]
+        batch["old_log_prob"] = old
+        names = ("policy_loss", "value_loss", "entropy", "approx_kl", "clip_fraction")
+        sums = dict.fromkeys((*names, "grad_norm", "value_grad_norm"), 0.0)
+        steps = 0
+        for minibatches in passes:
+            for idx in minibatches:
+                loss = self.minibatch_losses(batch, idx)
+                total = (loss["policy_loss"] + c.value_weight * loss["value_loss"]
+                         - c.entropy_weight * loss["entropy"])
+                self.opt.zero_grad(set_to_none=True)
+                total.backward()
+                if self.value_net is None:  # one network: one gradient, clipped as a whole
+                    sums["grad_norm"] += clip_grad_norm(self.params, c.grad_clip_norm)
+                else:  # two networks: the value gradient must not shrink the policy's
+                    sums["grad_norm"] += clip_grad_norm(self.policy_params, c.grad_clip_norm)
+                    sums["value_grad_norm"] += clip_grad_norm(self.value_net.parameters(),
+                                                              c.grad_clip_norm)
+                self.opt.step()
+                for name in names:
+                    sums[name] += float(loss[name].detach())
+                steps += 1
+        self.updates += 1
+        scalars = {k: v / steps for k, v in sums.items()}
+        if self.value_net is None:
+            del scalars["value_grad_norm"]
+        scalars["lr"] = lr
+        return scalars
+
+    def _score(self, batch: dict[str, Any], idx: torch.Tensor
+               ) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor]:
+        """(log π(a|s), entropy, V(s)) of the samples ``idx`` under the current networks."""
+        out, values = self._forward(batch["obs"][idx])
+        dist = self.head(out)
+        pre = None if batch["pre"] is None else batch["pre"][idx]
+        return dist.log_prob(batch["actions"][idx], pre), dist.entropy(), values
+
+    def _forward(self, obs: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
+        """(policy outputs, values) of a batch of flat observations."""
+        k = self.head.out_dim
+        if self.value_net is None:
+            y = self.net(obs)
+            return y[:, :k], y[:, k]
+        return self.net(obs), self.value_net(obs).squeeze(-1)
+
+    def _values(self, obs: torch.Tensor) -> torch.Tensor:
+        if self.value_net is None:
+            return self.net(obs)[:, self.head.out_dim]
+        return self.value_net(obs).squeeze(-1)
+
+    def _alloc_rollout(self) -> None:
+        c = self.config
+        shape = (c.rollout_steps, c.num_envs)
+        action_shape = () if self.head.discrete else (self.head.action_dim,)
+        action_dtype = np.int64 if self.head.discrete else np.float32
+        self._rollout: dict[str, np.ndarray] = {
+            "obs": np.zeros((*shape, self.obs_dim), dtype=np.float32),
+            "actions": np.zeros((*shape, *action_shape), dtype=action_dtype),
+            "rewards": np.zeros(shape, dtype=np.float64),
+            "terminated": np.zeros(shape, dtype=bool),
+            "truncated": np.zeros(shape, dtype=bool),
+            "next_obs": np.zeros((*shape, self.obs_dim), dtype=np.float32),
+        }
+        if self.sampler.needs_pre_squash:
+            self._rollout["pre"] = np.zeros((*shape, self.head.action_dim), dtype=np.float32)
+        self._t = 0
+
+    # -- state ------------------------------------------------------------------------------
+    def state_dict(self) -> dict[str, Any]:
+        t = self._t
+        return {
+            "net": self.net.state_dict(),
+            "value_net": None if self.value_net is None else self.value_net.state_dict(),
+            "head": self.head.state_dict(),
+            "opt": self.opt.state_dict(),
+            "rng": generator_states(self.rng, self.gen),
+            "sampler": self.sampler.state_dict(),
+            "rollout_t": t,
+            "rollout": {k: torch.from_numpy(v[:t].copy()) for k, v in self._rollout.items()},
+            "updates": self.updates,
+            "env_steps": self.env_steps,
+        }
+
+    def load_state_dict(self, state: dict[str, Any]) -> None:
+        self.net.load_state_dict(state["net"])
+        if self.value_net is not None:
+            self.value_net.load_state_dict(state["value_net"])
+        self.head.load_state_dict(state["head"])
+        self.opt.load_state_dict(state["opt"])
+        load_generator_states(state["rng"], self.rng, self.gen)
+        self.sampler.load_state_dict(state["sampler"])
+        t = int(state["rollout_t"])
+        for k, v in state["rollout"].items():
+            self._rollout[k][:t] = v.numpy()
+        self._t = t
+        self.updates = int(state["updates"])
+        self.env_steps = int(state["env_steps"])
+
+
+def clipped_surrogate(log_prob: torch.Tensor, old_log_prob: torch.Tensor,
+                      advantages: torch.Tensor, ratio_clip: float
+                      ) -> tuple[torch.Tensor, torch.Tensor]:
+    """``(−L^CLIP, ρ)``: the negated clipped surrogate (Schulman et al. 2017, eq. 7) as a loss
+    to minimise, and the probability ratios ``ρ = exp(log π − log π_old)``.
+
+    The minimum of the clipped and unclipped terms is a pessimistic bound: the objective is
+    flat, so its gradient zero, once ``ρ`` has left ``[1 − ε, 1 + ε]`` in the direction the
+    advantage favours.
+    """
+    ratio = torch.exp(log_prob - old_log_prob)
+    unclipped = ratio * advantages
+    clipped = ratio.clamp(1.0 - ratio_clip, 1.0 + ratio_clip) * advantages
+    return -torch.minimum(unclipped, clipped).mean(), ratio
+
+
+def value_loss(values: torch.Tensor, old_values: torch.Tensor, returns: torch.Tensor,
+               value_clip: float | None) -> torch.Tensor:
+    """Mean squared error to ``returns``; with ``value_clip``, the larger of that error and
+    the error of the prediction held within ``±value_clip`` of ``old_values``."""
+    error = (values - returns).pow(2)
+    if value_clip is None:
+        return error.mean()
+    held = old_values + (values - old_values).clamp(-value_clip, value_clip)
+    return torch.maximum(error, (held - returns).pow(2)).mean()
+
+
+def _finite_above(x: float, low: float) -> bool:
+    return math.isfinite(x) and x > low
+
+
+def _as_actions(actions: np.ndarray, head: PolicyHead, n: int) -> np.ndarray:
+    """Env actions in the dtype and shape the head scores: int64 ``(n,)``, float32 ``(n, d)``."""
+    if head.discrete:
+        return np.asarray(actions).astype(np.int64).reshape(n)
+    return np.asarray(actions, dtype=np.float32).reshape(n, head.action_dim)
