@@ -50,7 +50,7 @@ from typing import Any, ClassVar
 
 import numpy as np
 from gymnasium import spaces
-from seedsweep.configs.checks import ConfigError, check_type, require, unknown_key
+from seedsweep.configs.checks import ConfigError, check_type, nonfinite, require, unknown_key
 
 __all__ = ["CONTRACT_VERSION", "Agent", "ConfigError", "Step", "build_config", "check_type",
            "require"]
@@ -153,13 +153,17 @@ def build_config(agent_cls: type[Agent], values: dict[str, Any], prefix: str = "
     hints = _resolved_hints(agent_cls.Config)
     checked = {}
     for name, value in values.items():
-        checked[name] = check_type(f"{prefix}.{name}", value, hints[name])
+        checked[name] = check_type(f"{prefix}.{name}", value, hints[name], finite=False)
     try:
-        return agent_cls.Config(**checked)
+        config = agent_cls.Config(**checked)
     except ConfigError as err:
         if not err.field.startswith(prefix + "."):
             raise ConfigError(f"{prefix}.{err.field}", str(err).split(": ", 1)[1]) from None
         raise
+    for name, value in checked.items():  # what the Config's own range checks let through
+        if nonfinite(value):
+            raise ConfigError(f"{prefix}.{name}", f"must be a finite number (got {value!r})")
+    return config
 
 
 def _resolved_hints(cls: type) -> dict[str, Any]:

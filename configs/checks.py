@@ -37,10 +37,11 @@ def unknown_key(field: str, name: str, allowed: Iterable[str], what: str = "opti
                        + suggest(name, allowed))
 
 
-def check_type(field: str, value: Any, hint: Any) -> Any:
+def check_type(field: str, value: Any, hint: Any, finite: bool = True) -> Any:
     """Check ``value`` against a simple type hint (bool, int, float, str, list[...],
     Literal[...], Optional); ints are accepted where floats are expected. Floats must be
-    finite: a NaN or infinite setting is always a mistake in a config."""
+    finite (``finite=False`` leaves that to the caller, e.g. to let a range check speak
+    first): a NaN or infinite setting is always a mistake in a config."""
     origin = typing.get_origin(hint)
     args = typing.get_args(hint)
     if origin in (typing.Union, types.UnionType):
@@ -50,7 +51,7 @@ def check_type(field: str, value: Any, hint: Any) -> Any:
         errors = []
         for a in inner:
             try:
-                return check_type(field, value, a)
+                return check_type(field, value, a, finite)
             except ConfigError as err:
                 errors.append(err)
         raise errors[0]
@@ -62,7 +63,7 @@ def check_type(field: str, value: Any, hint: Any) -> Any:
         if not isinstance(value, (list, tuple)):
             raise ConfigError(field, f"expected a list, got {value!r}")
         item = args[0] if args else Any
-        return [check_type(f"{field}[{i}]", v, item) for i, v in enumerate(value)]
+        return [check_type(f"{field}[{i}]", v, item, finite) for i, v in enumerate(value)]
     if hint is Any:
         return value
     if hint is bool:
@@ -76,7 +77,7 @@ def check_type(field: str, value: Any, hint: Any) -> Any:
     if hint is float:
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise ConfigError(field, f"expected a number, got {value!r}")
-        if not math.isfinite(value):
+        if finite and not math.isfinite(value):
             raise ConfigError(field, f"must be a finite number (got {value!r})")
         return float(value)
     if hint is str:
@@ -84,6 +85,15 @@ def check_type(field: str, value: Any, hint: Any) -> Any:
             raise ConfigError(field, f"expected a string, got {value!r}")
         return value
     return value
+
+
+def nonfinite(value: Any) -> bool:
+    """Whether a config value is, or holds, a NaN or infinite float."""
+    if isinstance(value, float):
+        return not math.isfinite(value)
+    if isinstance(value, (list, tuple)):
+        return any(nonfinite(v) for v in value)
+    return False
 
 
 def require(field: str, value: Any, ok: bool, allowed: str) -> None:
