@@ -12,8 +12,13 @@ import numpy as np
 import pytest
 import yaml
 from scipy import stats as sps
-from seedsweep.runner.analysis import compare
-from seedsweep.runner.analysis.compare import compare_pair, fmt_interval, iqm_difference, verdict
+from seedsweep.runner.analysis import decision
+from seedsweep.runner.analysis.compare import (
+    compare_all,
+    compare_pair,
+    fmt_interval,
+    iqm_difference,
+)
 from seedsweep.runner.analysis.stats import Interval
 from seedsweep.runner.commands.compare import main as compare_main
 from seedsweep.runner.commands.report import main as report_main
@@ -96,26 +101,56 @@ def snapshot(folder: Path) -> dict[str, bytes]:
             if p.is_file()}
 
 
-# -- the verdict rule (source: the rule in the task brief) -----------------------------------
+# -- the verdict rule: a test with a stated level ----------------------------------------------
 
 
-def test_verdict_rule_and_its_boundaries():
-    better = verdict(Interval(0.9, 0.6, 1.0), Interval(0.2, 0.1, 0.3))
-    assert better[0] == "better"
-    worse = verdict(Interval(0.1, 0.0, 0.4), Interval(-0.2, -0.3, -0.1))
-    assert worse[0] == "worse"
-    # an endpoint equal to 0.5 is not "entirely above 0.5"
-    word, why = verdict(Interval(0.7, 0.5, 0.9), Interval(0.2, 0.1, 0.3))
-    assert word == "insufficient evidence"
-    assert "probability-of-improvement interval [0.500, 0.900] includes 0.5" in why
-    assert "IQM-difference" not in why.split(";")[0]  # the difference interval was decisive
-    word, why = verdict(Interval(0.57, 0.41, 0.73), Interval(0.05, -0.02, 0.12))
-    assert word == "insufficient evidence"
-    assert "[0.410, 0.730] includes 0.5" in why and "[-0.020, 0.120] includes 0" in why
-    word, why = verdict(Interval(0.8, 0.6, 0.9), Interval(-0.2, -0.3, -0.1))
-    assert word == "insufficient evidence" and "disagree" in why
-    word, _ = verdict(Interval(0.8, 0.6, 0.9), Interval(0.1, 0.0, 0.2))  # diff low == 0
-    assert word == "insufficient evidence"
+def test_two_against_two_seeds_can_never_be_called_better():
+    """One env, scores 201, 205 against 198, 200: every candidate run beats every baseline
+    run, yet 2 vs 2 seeds have only C(4, 2) = 6 labellings, so the two-sided p is at least
+    2/6 (scipy.stats.mannwhitneyu, exact: p = 1/3)."""
+    cand, base = [np.array([201.0, 205.0])], [np.array([198.0, 200.0])]
+    c = compare_pair("cand", "base", ["env"], {"cand": cand, "base": base},
+                     {"cand": cand, "base": base}, 500, 0.95, 0)
+    exact = sps.mannwhitneyu(cand[0], base[0], method="exact").pvalue
+    assert c["test"]["p_value"] == pytest.approx(exact) == pytest.approx(1 / 3)
+    assert c["verdict"] == "cannot decide"
+    # smallest decisive design on one env: 4 vs 4 seeds, p >= 2 / C(8, 4) = 2/70 <= 0.05,
+    # while 3 vs 3 gives 2 / C(6, 3) = 0.1 (binomial coefficients)
+    assert c["decisive_seeds_per_env"] == 4 and "4 seeds per agent per env" in c["reason"]
+    assert "alpha 0.05" in c["evidence"] and "2 vs 2" in c["evidence"]
+
+
+def test_a_clear_ten_against_ten_separation_is_better_or_worse():
+    rng = np.random.default_rng(3)
+    cand, base = [rng.normal(1.0, 0.05, 10)], [rng.normal(0.5, 0.05, 10)]
+    win = compare_pair("cand", "base", ["env"], {"cand": cand, "base": base},
+                       {"cand": cand, "base": base}, 1000, 0.95, 0)
+    assert win["verdict"] == "better", win["reason"]
+    # complete separation: the exact two-sided p is 2 / C(20, 10) (scipy.stats.mannwhitneyu)
+    assert win["test"]["p_value"] == pytest.approx(
+        sps.mannwhitneyu(cand[0], base[0], method="exact").pvalue) == pytest.approx(2 / 184756)
+    loss = compare_pair("base", "cand", ["env"], {"cand": cand, "base": base},
+                        {"cand": cand, "base": base}, 1000, 0.95, 0)
+    assert loss["verdict"] == "worse", loss["reason"]
+
+
+def test_several_baselines_are_one_holm_family():
+    """Holm 1979: with p-values sorted p(1) <= p(2), the adjusted values are
+    min(1, max(2 p(1)), ...) = 2 p(1) and max(2 p(1), p(2)) (here computed from scipy's exact
+    Mann-Whitney p-values, the same test the verdict runs on one env)."""
+    rng = np.random.default_rng(5)
+    cand = [rng.normal(1.0, 0.1, 6)]
+    near, far = [rng.normal(0.85, 0.1, 6)], [rng.normal(0.0, 0.1, 6)]
+    norm = {"cand": cand, "near": near, "far": far}
+    out = {c["baseline"]: c for c in compare_all("cand", ["near", "far"], ["env"], norm, norm,
+                                                  500, 0.95, 0)}
+    p_near = sps.mannwhitneyu(cand[0], near[0], method="exact").pvalue
+    p_far = sps.mannwhitneyu(cand[0], far[0], method="exact").pvalue
+    low, high = sorted([p_near, p_far])
+    expected = {min(p_near, p_far): min(1.0, 2 * low), max(p_near, p_far): max(2 * low, high)}
+    assert out["near"]["p_adjusted"] == pytest.approx(expected[p_near])
+    assert out["far"]["p_adjusted"] == pytest.approx(expected[p_far])
+    assert all(c["adjustment"] == "Holm over 2 baselines" for c in out.values())
 
 
 def test_interval_text_never_rounds_onto_the_threshold():
@@ -157,9 +192,10 @@ def test_clear_win_clear_loss_and_indistinguishable():
                         1000, 0.95, 0)
     assert loss["verdict"] == "worse", loss["reason"]
     # the reverse comparison mirrors the forward one exactly (P(Y>X) = 1 - P(X>Y), ties 1/2)
-    assert loss["iqm_difference"] == {"point": -win["iqm_difference"]["point"],
-                                      "low": -win["iqm_difference"]["high"],
-                                      "high": -win["iqm_difference"]["low"]}
+    fwd, back = win["iqm_difference"], loss["iqm_difference"]
+    assert (back["point"], back["low"], back["high"]) == (-fwd["point"], -fwd["high"],
+                                                          -fwd["low"])
+    assert loss["test"]["p_value"] == win["test"]["p_value"]
     assert loss["probability_of_improvement"]["high"] == pytest.approx(
         1 - win["probability_of_improvement"]["low"])
 
@@ -167,14 +203,13 @@ def test_clear_win_clear_loss_and_indistinguishable():
     assert same["verdict"] == "insufficient evidence"
     assert same["probability_of_improvement"]["point"] == 0.5  # all ties count 1/2
     assert same["iqm_difference"]["point"] == 0.0
-    assert "includes 0.5" in same["reason"] and "includes 0" in same["reason"]
+    assert same["test"]["p_value"] == 1.0 and "p = 1 > 0.05" in same["reason"]
 
     a = _strata([0.5, 0.5, 0.5], 0.1, 10, key=3)
     b = _strata([0.5, 0.5, 0.5], 0.1, 10, key=4)
     alike = _pair(a, b)  # one distribution: the intervals straddle 0.5 and 0
     assert alike["verdict"] == "insufficient evidence", alike
-    p, d = alike["probability_of_improvement"], alike["iqm_difference"]
-    assert p["low"] < 0.5 < p["high"] and d["low"] < 0.0 < d["high"]
+    assert alike["test"]["p_value"] > 0.05
 
 
 def test_iqm_difference_interval_agrees_with_scipy_bootstrap():
@@ -212,8 +247,7 @@ def test_compare_end_to_end(tmp_path, capsys):
     twin_p = by["twin"]["probability_of_improvement"]
     assert twin_p["point"] == 0.5  # identical scores: every pair ties, ties count 1/2
     assert by["twin"]["iqm_difference"]["point"] == 0.0
-    assert f"probability-of-improvement interval {fmt_interval(twin_p, 0.5)} includes 0.5" \
-        in by["twin"]["reason"]
+    assert by["twin"]["test"]["p_value"] == pytest.approx(1.0) and "> 0.05" in by["twin"]["reason"]
 
     finals = {}
     for rec in sweep.glob("*/run.json"):
@@ -362,4 +396,4 @@ def test_allow_few_compares_single_run_cells(tmp_path, capsys):
     doc = json.loads((sweep / "report" / "compare.json").read_text())
     assert doc["comparisons"][0]["per_env"]["CartPole-v1"]["raw_iqm"]["candidate"][
         "n_seeds"] == 1
-    assert compare.VERDICT_RULE == doc["verdict_rule"]
+    assert decision.VERDICT_RULE == doc["verdict_rule"]

@@ -9,6 +9,7 @@ the installed ``seedsweep`` is the only one the fresh interpreter can import. Th
 
 from __future__ import annotations
 
+import shutil
 import site
 import subprocess
 import sys
@@ -23,9 +24,16 @@ pytestmark = pytest.mark.slow
 
 @pytest.fixture(scope="module")
 def wheel(tmp_path_factory) -> tuple[Path, str]:
+    """Built from a copy of the sources, so the build leaves nothing in the checkout."""
     out = tmp_path_factory.mktemp("wheel")
+    source = tmp_path_factory.mktemp("source")
+    for name in ("pyproject.toml", "README.md"):
+        shutil.copy2(ROOT / name, source / name)
+    for folder in ("runner", "agents", "envs", "configs"):
+        shutil.copytree(ROOT / folder, source / folder,
+                        ignore=shutil.ignore_patterns("__pycache__"))
     built = subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps", "-w", str(out),
-                            str(ROOT)], capture_output=True, text=True, timeout=300)
+                            str(source)], capture_output=True, text=True, timeout=300)
     assert built.returncode == 0, built.stderr[-2000:]
     return next(out.glob("seedsweep-*.whl")), built.stdout + built.stderr
 

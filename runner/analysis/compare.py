@@ -17,20 +17,23 @@ from typing import Any
 
 import numpy as np
 from seedsweep.configs.checks import ConfigError
-from seedsweep.runner.analysis import power, scores, selection, stats
+from seedsweep.runner.analysis import (
+    decision,
+    intervals,
+    multiple,
+    permutation,
+    power,
+    scores,
+    selection,
+    stats,
+)
+from seedsweep.runner.analysis.permutation import PermutationResult
 from seedsweep.runner.analysis.runs import Problem, Sweep, load_sweep
 from seedsweep.runner.analysis.stats import keyed_rng
 
-VERDICT_RULE = (
-    "better: the interval of P(candidate > baseline) lies entirely above 0.5 (low > 0.5) AND "
-    "the interval of the IQM difference (candidate - baseline, normalised scores) lies "
-    "entirely above 0 (low > 0); worse: P interval entirely below 0.5 (high < 0.5) AND "
-    "IQM-difference interval entirely below 0 (high < 0); otherwise insufficient evidence. "
-    "An interval with an endpoint equal to 0.5 (or 0) includes it."
-)
-
-
-COMPARE_FILE = "compare.json"
+COMPARE_TOOLS = ("stratified permutation test (labels permuted within each env) of the "
+                 "stratified P(candidate > baseline); Holm's adjustment over the baselines; "
+                 "stratified bootstrap interval of the IQM difference")
 
 
 def iqm_difference(
@@ -39,17 +42,9 @@ def iqm_difference(
 ) -> stats.Interval:
     """IQM(x) - IQM(y) (IQM pooled over envs) with a stratified bootstrap percentile interval:
     each agent's runs are resampled within each env, independently of the other agent's."""
-    xs, ys = list(x_strata), list(y_strata)
-    if len(xs) != len(ys):
-        raise ValueError("X and Y need the same envs")
-    bx = stats.interquartile_mean(np.concatenate(stats.stratified_resample(xs, resamples, rng),
-                                                 axis=1), axis=1)
-    by = stats.interquartile_mean(np.concatenate(stats.stratified_resample(ys, resamples, rng),
-                                                 axis=1), axis=1)
-    point = float(stats.interquartile_mean(np.concatenate([np.ravel(a) for a in xs]))
-                  - stats.interquartile_mean(np.concatenate([np.ravel(a) for a in ys])))
-    low, high = stats.percentile_interval(bx - by, confidence)
-    return stats.Interval(point, float(low), float(high))
+    iv = intervals.iqm_difference_interval(list(x_strata), list(y_strata), resamples,
+                                           confidence, rng, "percentile")
+    return stats.Interval(iv.point, iv.low, iv.high)
 
 
 def _pair(candidate: str, baseline: str) -> tuple[str, str, bool]:
@@ -57,10 +52,6 @@ def _pair(candidate: str, baseline: str) -> tuple[str, str, bool]:
     (and P matches the report's table, which uses the same order and generator)."""
     first, second = sorted((candidate, baseline))
     return first, second, first != candidate
-
-
-def _mirror(iv: stats.Interval, centre: float) -> stats.Interval:
-    return stats.Interval(2 * centre - iv.point, 2 * centre - iv.high, 2 * centre - iv.low)
 
 
 def pair_improvement(cand: str, base: str, cand_strata: stats.Strata,
@@ -74,14 +65,32 @@ def pair_improvement(cand: str, base: str, cand_strata: stats.Strata,
     return stats.Interval(1.0 - iv.point, 1.0 - iv.high, 1.0 - iv.low) if flipped else iv
 
 
-def pair_difference(cand: str, base: str, cand_strata: stats.Strata,
-                    base_strata: stats.Strata, resamples: int, confidence: float,
-                    seed: int) -> stats.Interval:
+def pair_test(cand: str, base: str, cand_strata: stats.Strata, base_strata: stats.Strata,
+              seed: int) -> PermutationResult:
+    """The verdict's permutation test for one pair (its random relabellings, when the
+    design is too large to count exactly, come from a generator keyed by the pair)."""
     first, second, flipped = _pair(cand, base)
     x, y = (base_strata, cand_strata) if flipped else (cand_strata, base_strata)
-    iv = iqm_difference(x, y, resamples, confidence,
-                        keyed_rng(seed, "iqm_difference", first, second))
-    return _mirror(iv, 0.0) if flipped else iv
+    test = permutation.stratified_permutation_test(
+        x, y, rng=keyed_rng(seed, "permutation", first, second))
+    if flipped:  # the two-sided p-value is symmetric; the statistic mirrors
+        test = PermutationResult(1.0 - test.statistic, test.p_value, test.method,
+                                 test.permutations, test.smallest_p)
+    return test
+
+
+def pair_difference(cand: str, base: str, cand_strata: stats.Strata,
+                    base_strata: stats.Strata, resamples: int, confidence: float,
+                    seed: int, method: str = "bca") -> intervals.EffectInterval:
+    """IQM(candidate) - IQM(baseline) with the verdict's interval, keyed by the pair."""
+    first, second, flipped = _pair(cand, base)
+    x, y = (base_strata, cand_strata) if flipped else (cand_strata, base_strata)
+    iv = intervals.iqm_difference_interval(
+        x, y, resamples, confidence, keyed_rng(seed, "iqm_difference", first, second), method)
+    if not flipped:
+        return iv
+    return intervals.EffectInterval(-iv.point, -iv.high, -iv.low, iv.method, iv.confidence,
+                                    iv.zero_width)
 
 
 def fmt_interval(iv: stats.Interval | dict[str, float], threshold: float) -> str:
@@ -99,39 +108,81 @@ def fmt_interval(iv: stats.Interval | dict[str, float], threshold: float) -> str
     return f"[{one(low)}, {one(high)}]"
 
 
-def verdict(improvement: stats.Interval, difference: stats.Interval) -> tuple[str, str]:
-    """(verdict, reason) under :data:`VERDICT_RULE`."""
-    p_text = f"the probability-of-improvement interval {fmt_interval(improvement, 0.5)}"
-    d_text = f"the IQM-difference interval {fmt_interval(difference, 0.0)}"
-    p_above, p_below = improvement.low > 0.5, improvement.high < 0.5
-    d_above, d_below = difference.low > 0.0, difference.high < 0.0
-    if p_above and d_above:
-        return "better", f"{p_text} lies above 0.5 and {d_text} lies above 0"
-    if p_below and d_below:
-        return "worse", f"{p_text} lies below 0.5 and {d_text} lies below 0"
-    reasons = []
-    if not (p_above or p_below):
-        reasons.append(f"{p_text} includes 0.5")
-    if not (d_above or d_below):
-        reasons.append(f"{d_text} includes 0")
-    if reasons:
-        return "insufficient evidence", " and ".join(reasons) + (
-            "; more seeds would narrow the intervals (see seedsweep plan-seeds)")
-    p_side = "above 0.5" if p_above else "below 0.5"
-    d_side = "above 0" if d_above else "below 0"
-    return "insufficient evidence", (f"{p_text} lies {p_side} but {d_text} lies {d_side}: the "
-                                     "two measures disagree")
+def _seed_counts(strata: stats.Strata) -> str:
+    counts = sorted({len(s) for s in strata})
+    return str(counts[0]) if len(counts) == 1 else f"{counts[0]}-{counts[-1]}"
+
+
+def _verdict(test: PermutationResult, p_used: float, family: int, diff: intervals.EffectInterval,
+             alpha: float, envs: int) -> tuple[str, str, int]:
+    """(verdict, reason, seeds a decisive design needs) under :data:`decision.VERDICT_RULE`.
+
+    In a family of ``family`` baselines Holm's first step multiplies the smallest p by the
+    family size, so a design whose smallest possible p exceeds alpha / family can never give
+    a verdict; the reason says so and names the smallest design that can."""
+    code = int(decision.verdict_codes(np.array(p_used), np.array(test.statistic),
+                                      np.array(diff.low), np.array(diff.high), alpha))
+    level = alpha / family
+    decisive = permutation.seeds_to_reach(level, envs)
+    p_text = f"p = {p_used:.3g}" + (" (Holm-adjusted)" if family > 1 else "")
+    d_text = (f"the IQM-difference interval {fmt_interval(diff.as_dict(), 0.0)} "
+              f"({diff.confidence:.0%} {diff.method})")
+    if code == 1:
+        return "better", (f"{p_text} <= {alpha} with P(candidate > baseline) = "
+                          f"{test.statistic:.3f} > 0.5, and {d_text} lies above 0"), decisive
+    if code == -1:
+        return "worse", (f"{p_text} <= {alpha} with P(candidate > baseline) = "
+                         f"{test.statistic:.3f} < 0.5, and {d_text} lies below 0"), decisive
+    if test.smallest_p > level:
+        return "cannot decide", (
+            f"this design cannot decide: with these seed counts the smallest possible p is "
+            f"{test.smallest_p:.3g}" + (f" (x {family} for Holm's adjustment)" if family > 1
+                                        else "")
+            + f", never <= {alpha}; the smallest decisive design has {decisive} seeds per "
+            "agent per env"), decisive
+    if p_used > alpha:
+        same = (" (every run scored the same: no spread, which is not proof of equality)"
+                if diff.zero_width else "")
+        return "insufficient evidence", (f"{p_text} > {alpha}: the runs do not show a "
+                                         f"difference at this level{same}"), decisive
+    return "insufficient evidence", (f"{p_text} <= {alpha} but {d_text} does not lie on the "
+                                     "same side of 0 as the ranks: the two measures "
+                                     "disagree"), decisive
+
+
+def compare_all(cand: str, baselines: Sequence[str], envs: Sequence[str],
+                norm: dict[str, list[np.ndarray]], raw: dict[str, list[np.ndarray]],
+                resamples: int, confidence: float, seed: int, alpha: float = 0.05,
+                method: str = "bca") -> list[dict[str, Any]]:
+    """compare.json's entries, one per baseline. The baselines are one family: their
+    permutation p-values are Holm-adjusted together (Holm 1979). ``norm``/``raw``: agent ->
+    per-env arrays of normalised/raw run scores, in the order of ``envs``."""
+    tests = {b: pair_test(cand, b, norm[cand], norm[b], seed) for b in baselines}
+    adjusted = multiple.holm([tests[b].p_value for b in baselines], alpha).adjusted
+    family = len(baselines)
+    out = []
+    for b, p_used in zip(baselines, adjusted, strict=True):
+        out.append(_compare_one(cand, b, envs, norm, raw, resamples, confidence, seed, alpha,
+                                method, tests[b], float(p_used), family))
+    return out
 
 
 def compare_pair(cand: str, base: str, envs: Sequence[str], norm: dict[str, list[np.ndarray]],
                  raw: dict[str, list[np.ndarray]], resamples: int, confidence: float,
-                 seed: int) -> dict[str, Any]:
-    """Everything compare.json says about one baseline. ``norm``/``raw``: agent -> per-env
-    arrays of normalised/raw run scores, in the order of ``envs``."""
+                 seed: int, alpha: float = 0.05, method: str = "bca") -> dict[str, Any]:
+    """The entry for one baseline compared alone (no adjustment)."""
+    return compare_all(cand, [base], envs, norm, raw, resamples, confidence, seed, alpha,
+                       method)[0]
+
+
+def _compare_one(cand: str, base: str, envs: Sequence[str], norm: dict, raw: dict,
+                 resamples: int, confidence: float, seed: int, alpha: float, method: str,
+                 test: PermutationResult, p_used: float, family: int) -> dict[str, Any]:
     improvement = pair_improvement(cand, base, norm[cand], norm[base], resamples, confidence,
                                    seed)
-    difference = pair_difference(cand, base, norm[cand], norm[base], resamples, confidence, seed)
-    word, reason = verdict(improvement, difference)
+    difference = pair_difference(cand, base, norm[cand], norm[base], resamples, 1.0 - alpha,
+                                 seed, method)
+    word, reason, decisive = _verdict(test, p_used, family, difference, alpha, len(envs))
     per_env = {}
     for j, env in enumerate(envs):
         cells = {}
@@ -140,16 +191,32 @@ def compare_pair(cand: str, base: str, envs: Sequence[str], norm: dict[str, list
             iv = stats.bootstrap_interval(values, "iqm", resamples, confidence,
                                           keyed_rng(seed, "per_env", agent, env))
             cells[role] = {**iv.as_dict(), "n_seeds": int(values.size)}
-        env_p = pair_improvement(cand, base, [norm[cand][j]], [norm[base][j]], resamples,
-                                 confidence, seed, "improvement_env", env)
+        # one env: the per-env P is the same quantity as the aggregate one, computed once
+        env_p = improvement if len(envs) == 1 else pair_improvement(
+            cand, base, [norm[cand][j]], [norm[base][j]], resamples, confidence, seed,
+            "improvement", env)
         per_env[env] = {"raw_iqm": cells, "probability_of_improvement": env_p.as_dict()}
     aggregate = {a: stats.aggregate_intervals(norm[a], resamples, confidence,
                                               keyed_rng(seed, "aggregate", a))["iqm"].as_dict()
                  for a in (cand, base)}
+    adjustment = (f"Holm over {family} baselines" if family > 1 else "none (one baseline)")
+    evidence = (f"alpha {alpha}; seeds per env {_seed_counts(norm[cand])} vs "
+                f"{_seed_counts(norm[base])} on {len(envs)} env{'s' if len(envs) > 1 else ''}; "
+                f"permutation p = {test.p_value:.3g}"
+                + (f", Holm-adjusted {p_used:.3g}" if family > 1 else "")
+                + f"; IQM difference {difference.point:+.3f} "
+                f"{fmt_interval(difference.as_dict(), 0.0)} ({difference.confidence:.0%} "
+                f"{difference.method})")
     return {
         "baseline": base,
         "verdict": word,
         "reason": reason,
+        "evidence": evidence,
+        "alpha": alpha,
+        "test": test.as_dict(),
+        "p_adjusted": p_used,
+        "adjustment": adjustment,
+        "decisive_seeds_per_env": decisive,
         "probability_of_improvement": improvement.as_dict(),
         "iqm_difference": difference.as_dict(),
         "candidate_iqm": aggregate[cand],
@@ -197,7 +264,8 @@ def request_of(opts: argparse.Namespace) -> dict[str, Any]:
     return {"candidate": opts.candidate, "baseline": opts.baseline, "envs": opts.envs,
             "score": opts.score, "last_k": opts.last_k, "confidence": opts.confidence,
             "resamples": opts.resamples, "seed": opts.seed, "allow_few": opts.allow_few,
-            "random_episodes": opts.random_episodes}
+            "random_episodes": opts.random_episodes, "alpha": opts.alpha,
+            "interval": opts.interval}
 
 
 def compute_comparison(opts: argparse.Namespace) -> dict[str, Any]:
@@ -207,32 +275,29 @@ def compute_comparison(opts: argparse.Namespace) -> dict[str, Any]:
     agents = [cells.candidate, *cells.baselines]
     compared = [r for a in agents for e in cells.envs for r in cells.by_cell[(a, e)]]
     raw_score = {r.run_id: scores.score_run(r, opts.score, opts.last_k) for r in compared}
-    targets = {e: scores.reference_score(cells.env_cfgs[e]) for e in cells.envs}
-    references = {}
-    for env in cells.envs:
-        randoms, excluded = selection.matching_random_runs(
-            cells.sweep.runs, env, cells.env_cfgs[env], cells.eval_settings[env])
-        cells.problems += excluded
-        references[env] = selection.make_reference(
-            Path(opts.sweep).parent, cells.env_cfgs[env], cells.eval_settings[env],
-            targets[env], randoms, opts)
+    references, excluded = _references(cells, opts)
+    cells.problems += excluded
     raw = {a: [np.array([raw_score[r.run_id] for r in cells.by_cell[(a, e)]])
                for e in cells.envs] for a in agents}
     norm = {a: [np.asarray(references[e].normalise(v), dtype=float)
                 for e, v in zip(cells.envs, raw[a], strict=True)] for a in agents}
-    comparisons = [compare_pair(cells.candidate, b, cells.envs, norm, raw, opts.resamples,
-                                opts.confidence, opts.seed) for b in cells.baselines]
+    comparisons = compare_all(cells.candidate, cells.baselines, cells.envs, norm, raw,
+                              opts.resamples, opts.confidence, opts.seed, opts.alpha,
+                              opts.interval)
     return {
         "sweep": cells.sweep.name,
         "candidate": cells.candidate,
         "baselines": cells.baselines,
         "envs": cells.envs,
-        "verdict_rule": VERDICT_RULE,
+        "verdict_rule": decision.VERDICT_RULE,
+        "alpha": opts.alpha,
+        "methods": COMPARE_TOOLS,
         "comparisons": comparisons,
         "references": {e: references[e].as_dict() for e in cells.envs},
         "evaluation": cells.eval_settings,
         "bootstrap": {"resamples": opts.resamples, "confidence": opts.confidence,
-                      "seed": opts.seed, "method": "stratified (strata = envs), percentile"},
+                      "seed": opts.seed, "method": "stratified (strata = envs), percentile; "
+                      f"the IQM difference: {opts.interval} at level 1 - alpha"},
         "score": {"method": opts.score,
                   "last_k": opts.last_k if opts.score == "last-k" else None,
                   "normalisation": "(score - random) / (reference - random)"},
@@ -246,7 +311,13 @@ def compute_comparison(opts: argparse.Namespace) -> dict[str, Any]:
 def parse_differences(items: Sequence[str] | None, envs: Sequence[str],
                       sweep: Sweep) -> dict[str, float]:
     """--difference values per env: ``D`` for every env, ``ENV=D`` for one (env key,
-    gymnasium id or env config name)."""
+    gymnasium id or env config name). Required: no default from the pilots' own difference
+    (planning for the observed difference is the post-hoc power fallacy)."""
+    if not items:
+        raise ConfigError("--difference", "required: the smallest difference in score that "
+                          "matters to you (raw score units, ENV=D per env, or with --units "
+                          "normalised); planning for the pilots' own difference would plan "
+                          "too few seeds whenever the pilots were lucky")
     aliases = {e: e for e in envs}
     for r in sweep.runs:
         if r.env_key in envs:
@@ -254,7 +325,7 @@ def parse_differences(items: Sequence[str] | None, envs: Sequence[str],
             if r.env_id == r.env_key:
                 aliases.setdefault(r.env_id, r.env_key)
     out: dict[str, float] = {}
-    for item in items or []:
+    for item in items:
         name, sep, value = item.rpartition("=")
         try:
             d = float(value)
@@ -270,52 +341,81 @@ def parse_differences(items: Sequence[str] | None, envs: Sequence[str],
         else:
             raise ConfigError("--difference", f"unknown env {name!r} (compared: "
                               f"{', '.join(envs)})")
+    missing = [e for e in envs if e not in out]
+    if missing:
+        raise ConfigError("--difference", f"no difference for {missing[0]} (give D for every "
+                          f"env, or ENV=D for each of {', '.join(envs)})")
     return out
 
 
 def plan_seeds(opts: argparse.Namespace) -> dict[str, Any]:
-    """The seed plan per env and baseline; ConfigError on bad input; writes nothing."""
+    """Seeds per agent per env for the verdict's own test (the stratified permutation test,
+    Holm-planned at alpha / number of baselines) to detect the stated difference with the
+    target power, from pilot runs; ConfigError on bad input; writes nothing."""
     cells = load_cells(opts, allow_few=False, pilot=True)
     differences = parse_differences(opts.difference, cells.envs, cells.sweep)
+    scale = dict.fromkeys(cells.envs, 1.0)
+    if opts.units == "normalised":
+        refs, _ = _references(cells, opts)
+        scale = {e: refs[e].reference - refs[e].random for e in cells.envs}
+    raw_d = {e: differences[e] * scale[e] for e in cells.envs}
+    level = opts.alpha / len(cells.baselines)
     plans = []
     for base in cells.baselines:
-        for env in cells.envs:
-            x = np.array([scores.score_run(r, opts.score, opts.last_k)
-                          for r in cells.by_cell[(cells.candidate, env)]])
-            y = np.array([scores.score_run(r, opts.score, opts.last_k)
-                          for r in cells.by_cell[(base, env)]])
-            observed = float(x.mean() - y.mean())
-            d = differences.get(env, observed)
-            if d == 0:
-                raise ConfigError("--difference", f"{env}: the pilot means of "
-                                  f"{cells.candidate} and {base} are equal, so there is no "
-                                  f"observed difference; give --difference {env}=D")
+        xs = [np.array([scores.score_run(r, opts.score, opts.last_k)
+                        for r in cells.by_cell[(cells.candidate, e)]]) for e in cells.envs]
+        ys = [np.array([scores.score_run(r, opts.score, opts.last_k)
+                        for r in cells.by_cell[(base, e)]]) for e in cells.envs]
+        for e, x, y in zip(cells.envs, xs, ys, strict=True):
             if np.ptp(x) == 0 and np.ptp(y) == 0:
-                raise ConfigError("runs", f"{env}: every pilot run of {cells.candidate} and "
-                                  f"{base} has the same score; power needs spread in the scores")
-            rng = keyed_rng(opts.seed, "plan_seeds", cells.candidate, base, env)
-            plan = power.seeds_needed(x, y, d, opts.power, opts.alpha, rng,
-                                      max_seeds=opts.max_seeds, resamples=opts.resamples,
-                                      alternative=opts.alternative)
-            plans.append({
-                "env": env, "baseline": base, "pilot_seeds": [int(x.size), int(y.size)],
-                "candidate_mean": float(x.mean()), "baseline_mean": float(y.mean()),
-                "candidate_sd": float(x.std(ddof=1)), "baseline_sd": float(y.std(ddof=1)),
-                "observed_difference": observed, "difference": d,
-                "difference_source": "--difference" if env in differences else "observed",
-                "seeds_per_agent": plan.seeds, "seeds_label": plan.label,
-                "power_at_seeds": plan.power,
-                "power_curve": {str(n): p for n, p in plan.curve.items()},
-            })
+                raise ConfigError("runs", f"{e}: every pilot run of {cells.candidate} and "
+                                  f"{base} has the same score; power needs spread in the "
+                                  "scores")
+        rng = keyed_rng(opts.seed, "plan_seeds", cells.candidate, base)
+        plan = power.plan_seeds(xs, ys, [raw_d[e] for e in cells.envs], opts.power, level, rng,
+                                reps=opts.resamples, max_seeds=opts.max_seeds)
+        plans.append({
+            "baseline": base,
+            "pilot_seeds": {e: [int(x.size), int(y.size)]
+                            for e, x, y in zip(cells.envs, xs, ys, strict=True)},
+            "pilot_sd": dict(zip(cells.envs, plan.sd, strict=True)),
+            "sd_upper_bound": dict(zip(cells.envs, plan.sd_high, strict=True)),
+            "difference_raw": raw_d,
+            "seeds_per_agent": plan.expected.seeds, "seeds_label": plan.expected.label,
+            "power_at_seeds": plan.expected.power,
+            "seeds_at_pilot_sd": plan.at_pilot_sd.label,
+            "seeds_if_sd_high": plan.if_sd_high.label,
+            "model": plan.model,
+            "power_curve": {str(n): v for n, v in plan.expected.curve.items()},
+        })
     return {
         "sweep": cells.sweep.name, "candidate": cells.candidate, "baselines": cells.baselines,
-        "envs": cells.envs, "power": opts.power, "alpha": opts.alpha,
-        "alternative": opts.alternative, "max_seeds": opts.max_seeds,
-        "resamples": opts.resamples, "seed": opts.seed, "score": opts.score,
-        "test": "Welch's t-test (scipy.stats.ttest_ind, equal_var=False)",
-        "method": "bootstrap power analysis of Colas, Sigaud and Oudeyer 2018, How Many "
-                  "Random Seeds? (arXiv:1806.08295): candidate pilot scores shifted so the "
-                  "mean difference is D, both resampled with replacement",
+        "envs": cells.envs, "power": opts.power, "alpha": opts.alpha, "planned_level": level,
+        "units": opts.units, "difference": differences, "max_seeds": opts.max_seeds,
+        "reps": opts.resamples, "seed": opts.seed, "score": opts.score,
+        "sd_level": 0.8,
+        "test": "the verdict's test: stratified permutation test of P(candidate > baseline), "
+                "two-sided, at alpha / number of baselines (Holm's first step)",
+        "method": "power by simulation of that test: pilots centred per agent and env, pooled "
+                  "unbiased SD (ddof=1), normal runs (residual resampling from 10 pilots per "
+                  "cell), the candidate shifted by the stated difference; the plan averages "
+                  "power over the SDs the pilots allow (assurance, O'Hagan, Stevens and "
+                  "Campbell 2005)",
         "plans": plans,
         "excluded_runs": [vars(p) for p in cells.problems],
     }
+
+
+def _references(cells: Loaded, opts: argparse.Namespace
+                ) -> tuple[dict[str, scores.Reference], list[Problem]]:
+    """Random and reference scores per env, and the random runs left out (and why)."""
+    targets = {e: scores.reference_score(cells.env_cfgs[e]) for e in cells.envs}
+    out, excluded = {}, []
+    for env in cells.envs:
+        randoms, left_out = selection.matching_random_runs(
+            cells.sweep.runs, env, cells.env_cfgs[env], cells.eval_settings[env])
+        excluded += left_out
+        out[env] = selection.make_reference(Path(opts.sweep).parent, cells.env_cfgs[env],
+                                            cells.eval_settings[env], targets[env], randoms,
+                                            opts)
+    return out, excluded

@@ -26,14 +26,15 @@ from seedsweep.runner.analysis import intervals, multiple, permutation
 from seedsweep.runner.analysis.intervals import EffectInterval, Strata
 from seedsweep.runner.analysis.permutation import PermutationResult
 
-VERDICTS = ("better", "worse", "insufficient evidence")
+VERDICTS = ("better", "worse", "insufficient evidence", "cannot decide")
 VERDICT_RULE = (
     "better: the stratified permutation test of P(candidate > baseline) (labels permuted "
     "within each env; two-sided; Holm-adjusted over the baselines) gives p <= alpha with "
     "P > 0.5, AND the stratified bootstrap interval of the IQM difference (candidate - "
     "baseline, level 1 - alpha) lies entirely above 0 (low > 0); worse: p <= alpha with "
-    "P < 0.5 AND that interval lies entirely below 0 (high < 0); otherwise insufficient "
-    "evidence."
+    "P < 0.5 AND that interval lies entirely below 0 (high < 0); cannot decide: the seed "
+    "counts are too small for any data to give p <= alpha (after Holm's adjustment); "
+    "otherwise insufficient evidence."
 )
 
 

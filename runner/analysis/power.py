@@ -43,15 +43,10 @@ t-test from the noncentral t distribution (one env, equal SDs). The rank test ne
 pi/3 times as many runs for normal scores (its asymptotic relative efficiency 3/pi, Hodges and
 Lehmann 1956, Annals of Mathematical Statistics 27(2)), about one seed more at 10-20 seeds.
 
-Legacy (:func:`seeds_needed`, :func:`bootstrap_power`): the bootstrap power of Welch's t-test
-(Colas, Sigaud and Oudeyer 2018, arXiv:1806.08295, from memory) that ``seedsweep
-plan-seeds`` runs today, until the command is moved to :func:`plan_seeds`. Its resampled
-pilots are now rescaled to the unbiased variance as well.
 """
 
 from __future__ import annotations
 
-import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
@@ -59,7 +54,6 @@ import numpy as np
 from scipy import stats as sps
 from seedsweep.runner.analysis import permutation
 
-ALTERNATIVES = ("two-sided", "one-sided")
 MAX_SEEDS_LIMIT = 1000  # the noise matrices are (reps, max_seeds): bound their memory
 MODELS = ("auto", "normal", "residuals")
 AUTO_RESIDUAL_PILOTS = 10
@@ -236,7 +230,7 @@ def plan_seeds(
     of the candidate and the baseline (at least 2 each, not all equal)."""
     xs, ys = _pilot_strata(x_pilot, y_pilot)
     d = _differences(difference, len(xs))
-    _check(1.0, power, alpha, max_seeds, reps, "two-sided")
+    _check(1.0, power, alpha, max_seeds, reps)
     chosen = _choose_model(model, xs, ys)
     pooled = [pooled_sd(x, y) for x, y in zip(xs, ys, strict=True)]
     if any(sd == 0 for sd, _ in pooled):
@@ -293,23 +287,7 @@ def t_test_seeds(effect: float, power: float = 0.8, alpha: float = 0.05,
     return None
 
 
-# -- legacy: bootstrap power of Welch's t-test ------------------------------------------------
-
-
-@dataclass(frozen=True)
-class SeedPlan:
-    """The smallest seed count per agent reaching the target power, or None when even
-    ``max_seeds`` does not; ``curve`` holds every seed count evaluated and its power."""
-
-    seeds: int | None
-    power: float  # estimated power at ``seeds`` (at ``max_seeds`` when not reached)
-    target: float
-    max_seeds: int
-    curve: dict[int, float] = field(default_factory=dict)
-
-    @property
-    def label(self) -> str:
-        return str(self.seeds) if self.seeds is not None else f"> {self.max_seeds}"
+# -- checks of the inputs ------------------------------------------------------------------
 
 
 def _sample(values: np.ndarray, name: str) -> np.ndarray:
@@ -321,40 +299,8 @@ def _sample(values: np.ndarray, name: str) -> np.ndarray:
     return arr
 
 
-def unbiased_spread(x: np.ndarray) -> np.ndarray:
-    """``x`` spread about its mean by sqrt(k / (k - 1)), so resampling it draws from a law
-    whose variance is the unbiased sample variance (ddof=1), not the ddof=0 one."""
-    x = np.asarray(x, dtype=float)
-    return x.mean() + (x - x.mean()) * np.sqrt(x.size / (x.size - 1))
-
-
-def shift_to_difference(x: np.ndarray, y: np.ndarray, difference: float) -> np.ndarray:
-    """``x`` moved so that mean(x) - mean(y) equals ``difference`` (its spread and shape kept),
-    so resamples from it and ``y`` come from distributions whose true difference is D."""
-    x = np.asarray(x, dtype=float)
-    return x - x.mean() + np.mean(y) + difference
-
-
-def scipy_alternative(alternative: str, difference: float) -> str:
-    """scipy's ``alternative``: one-sided tests look in the direction of the difference."""
-    if alternative == "two-sided":
-        return "two-sided"
-    if alternative == "one-sided":
-        return "greater" if difference > 0 else "less"
-    raise ValueError(f"alternative must be one of {ALTERNATIVES} (got {alternative!r})")
-
-
-def rejection_rate(a: np.ndarray, b: np.ndarray, alpha: float, alternative: str) -> float:
-    """Fraction of rows where Welch's t-test of a[i] against b[i] rejects at ``alpha``.
-    Rows whose test is undefined (no spread in both) count as not rejecting."""
-    with warnings.catch_warnings(), np.errstate(divide="ignore", invalid="ignore"):
-        warnings.simplefilter("ignore", RuntimeWarning)
-        pvalues = sps.ttest_ind(a, b, axis=1, equal_var=False, alternative=alternative).pvalue
-    return float(np.mean(np.nan_to_num(pvalues, nan=1.0) < alpha))
-
-
-def _check(difference: float, power: float, alpha: float, max_seeds: int, resamples: int,
-           alternative: str) -> None:
+def _check(difference: float, power: float, alpha: float, max_seeds: int,
+           resamples: int) -> None:
     if not np.isfinite(difference) or difference == 0:
         raise ValueError(f"difference must be finite and non-zero (got {difference})")
     if not 0.0 < power < 1.0:
@@ -365,63 +311,3 @@ def _check(difference: float, power: float, alpha: float, max_seeds: int, resamp
         raise ValueError(f"max_seeds must be in [2, {MAX_SEEDS_LIMIT}] (got {max_seeds})")
     if resamples < 1:
         raise ValueError(f"resamples must be >= 1 (got {resamples})")
-    scipy_alternative(alternative, difference)
-
-
-def bootstrap_power(
-    x: np.ndarray, y: np.ndarray, difference: float, n: int, alpha: float,
-    rng: np.random.Generator, *, resamples: int = 2000, alternative: str = "two-sided",
-) -> float:
-    """Estimated power of Welch's t-test with ``n`` seeds per agent to detect ``difference``
-    (mean of x minus mean of y), from the pilot samples ``x`` and ``y``."""
-    x, y = _sample(x, "x"), _sample(y, "y")
-    if n < 2:
-        raise ValueError(f"n must be >= 2 (got {n})")
-    _check(difference, 0.5, alpha, 2, resamples, alternative)
-    shifted = shift_to_difference(unbiased_spread(x), y, difference)
-    y = unbiased_spread(y)
-    a = shifted[rng.integers(0, x.size, size=(resamples, n))]
-    b = y[rng.integers(0, y.size, size=(resamples, n))]
-    return rejection_rate(a, b, alpha, scipy_alternative(alternative, difference))
-
-
-def seeds_needed(
-    x: np.ndarray, y: np.ndarray, difference: float, power: float = 0.8, alpha: float = 0.05,
-    rng: np.random.Generator | None = None, *, max_seeds: int = 100, resamples: int = 2000,
-    alternative: str = "two-sided",
-) -> SeedPlan:
-    """Smallest number of seeds per agent for which Welch's t-test detects ``difference``
-    (mean of x minus mean of y) with probability >= ``power`` at level ``alpha``, estimated
-    by bootstrap from the pilot samples ``x`` (candidate) and ``y`` (baseline). Legacy: the
-    verdict no longer uses Welch's test; plan with :func:`plan_seeds`."""
-    x, y = _sample(x, "x"), _sample(y, "y")
-    _check(difference, power, alpha, max_seeds, resamples, alternative)
-    if np.ptp(x) == 0 and np.ptp(y) == 0:
-        raise ValueError("both pilot samples have no spread: any difference would be "
-                         "detected with 2 seeds, which says nothing about real runs")
-    rng = rng if rng is not None else np.random.default_rng(0)
-    test = scipy_alternative(alternative, difference)
-    shifted = shift_to_difference(unbiased_spread(x), y, difference)
-    y = unbiased_spread(y)
-    draws_x = shifted[rng.integers(0, x.size, size=(resamples, max_seeds), dtype=np.int32)]
-    draws_y = y[rng.integers(0, y.size, size=(resamples, max_seeds), dtype=np.int32)]
-    curve: dict[int, float] = {}
-
-    def power_at(n: int) -> float:
-        if n not in curve:
-            curve[n] = rejection_rate(draws_x[:, :n], draws_y[:, :n], alpha, test)
-        return curve[n]
-
-    below, n = None, 2
-    while power_at(n) < power:  # doubling until the target is reached or max_seeds fails
-        if n == max_seeds:
-            return SeedPlan(None, curve[n], power, max_seeds, dict(sorted(curve.items())))
-        below, n = n, min(2 * n, max_seeds)
-    if below is not None:  # bisection: power(below) < target <= power(n)
-        while n - below > 1:
-            mid = (below + n) // 2
-            if power_at(mid) >= power:
-                n = mid
-            else:
-                below = mid
-    return SeedPlan(n, curve[n], power, max_seeds, dict(sorted(curve.items())))

@@ -30,6 +30,7 @@ def build_parser() -> argparse.ArgumentParser:
     add_pair(p)
     options.add_scoring(p, SCORE_METHODS)
     options.add_interval_options(p)
+    options.add_verdict_options(p)
     options.add_resampling(p)
     p.add_argument("--quiet", action="store_true", help="no terminal table")
     return p
@@ -38,6 +39,7 @@ def build_parser() -> argparse.ArgumentParser:
 def parse_options(argv: Sequence[str]) -> argparse.Namespace:
     opts = build_parser().parse_args(list(argv))
     options.check_statistics_options(opts)
+    options.check_alpha(opts)
     return opts
 
 
@@ -48,7 +50,8 @@ def argv_of(request: dict[str, Any], sweep: str) -> list[str]:
         argv += ["--baseline", str(b)]
     if request.get("envs"):
         argv += ["--envs", str(request["envs"])]
-    for key in ("score", "last_k", "confidence", "resamples", "seed", "random_episodes"):
+    for key in ("score", "last_k", "confidence", "resamples", "seed", "random_episodes",
+                "alpha", "interval"):
         if request.get(key) is not None:
             argv += ["--" + key.replace("_", "-"), str(request[key])]
     if request.get("allow_few"):

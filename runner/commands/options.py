@@ -19,6 +19,7 @@ from seedsweep.runner.execution import logs
 from seedsweep.runner.launch.random_scores import measure_random
 
 EXIT_BAD_INPUT = 2
+INTERVALS = ("bca", "percentile")
 EXIT_INTERRUPTED = 130
 
 
@@ -89,6 +90,19 @@ def add_interval_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--random-episodes", type=int, default=None,
                    help="episodes when the random score must be measured (default: max(100, "
                    "eval.episodes))")
+
+
+def add_verdict_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--alpha", type=float, default=0.05,
+                   help="level of the verdict's test (0.05); the IQM-difference interval "
+                   "shown with a verdict has level 1 - alpha")
+    p.add_argument("--interval", choices=INTERVALS, default="bca",
+                   help="bootstrap interval of the IQM difference: bca (default) or percentile")
+
+
+def check_alpha(opts: Any) -> None:
+    if not 0.0 < opts.alpha < 0.5:
+        raise ConfigError("--alpha", f"must be in (0, 0.5) (got {opts.alpha})")
 
 
 def check_statistics_options(opts: Any) -> None:

@@ -35,6 +35,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="also count the random agent as a compared agent")
     options.add_scoring(p, SCORE_METHODS)
     options.add_interval_options(p)
+    options.add_verdict_options(p)
     options.add_resampling(p)
     p.add_argument("--interpolate", action="store_true",
                    help="interpolate curves of runs with different evaluation schedules")
@@ -50,6 +51,7 @@ def build_parser() -> argparse.ArgumentParser:
 def parse_options(argv: Sequence[str]) -> argparse.Namespace:
     opts = build_parser().parse_args(list(argv))
     options.check_statistics_options(opts)
+    options.check_alpha(opts)
     return opts
 
 

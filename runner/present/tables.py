@@ -49,19 +49,22 @@ def _fmt_iv(iv: stats.Interval) -> str:
 
 
 def print_comparison(doc: dict[str, Any], target: Path) -> None:
-    console = Console(file=sys.stdout, width=140)
+    """The verdicts first, then what they rest on: one row per baseline, then per env."""
+    console = Console(file=sys.stdout, width=120)
     conf = doc["bootstrap"]["confidence"]
-    table = Table(title=Text(f"{doc['candidate']} vs baselines on {len(doc['envs'])} envs "
-                             f"({conf:.0%} stratified bootstrap intervals, normalised scores)"))
-    for col in ("baseline", "IQM difference", "P(candidate > baseline)", "verdict"):
-        table.add_column(col)
+    table = Table(title=Text(f"{doc['candidate']} vs baselines on {len(doc['envs'])} env(s): "
+                             f"verdicts at alpha {doc['alpha']} (normalised scores)"))
+    for col in ("baseline", "verdict", "p (adjusted)", "IQM difference",
+                f"P(candidate > baseline), {conf:.0%} CI"):
+        table.add_column(Text(col), justify="left" if col in ("baseline", "verdict")
+                         else "right")
     for c in doc["comparisons"]:
-        table.add_row(c["baseline"], _iv(c["iqm_difference"]),
-                      _iv(c["probability_of_improvement"]), c["verdict"])
+        table.add_row(c["baseline"], c["verdict"], f"{c['p_adjusted']:.3g}",
+                      _iv(c["iqm_difference"]), _iv(c["probability_of_improvement"]))
     console.print(table, markup=False)
-    envs = Table(title=Text("per env: IQM of raw scores over seeds [interval] (seeds)"))
+    envs = Table(title=Text(f"per env: IQM of raw scores over seeds, {conf:.0%} CI (seeds)"))
     for col in ("env", "baseline", doc["candidate"], "baseline score", "P(cand > base)"):
-        envs.add_column(Text(col))
+        envs.add_column(Text(col), justify="left" if col in ("env", "baseline") else "right")
     for c in doc["comparisons"]:
         for env, cell in c["per_env"].items():
             cand, base = cell["raw_iqm"]["candidate"], cell["raw_iqm"]["baseline"]
@@ -71,11 +74,11 @@ def print_comparison(doc: dict[str, Any], target: Path) -> None:
     console.print(envs, markup=False)
     for c in doc["comparisons"]:
         console.print(f"vs {c['baseline']}: {c['verdict']}: {c['reason']}", markup=False)
+        console.print(f"  evidence: {c['evidence']}", markup=False)
     if doc["excluded_runs"]:
         console.print(f"{len(doc['excluded_runs'])} run(s) left out; listed in compare.json.",
                       markup=False)
     console.print(f"comparison: {target}", markup=False)
-
 
 
 def _iv(d: dict[str, float]) -> str:
@@ -90,20 +93,19 @@ def _raw_iv(d: dict[str, float]) -> str:
 
 
 def print_plan(doc: dict[str, Any]) -> None:
-    console = Console(file=sys.stdout, width=140)
-    side = "two-sided" if doc["alternative"] == "two-sided" else "one-sided"
-    table = Table(title=f"seeds per agent for power {doc['power']} at alpha {doc['alpha']} "
-                  f"({side} Welch t-test, {doc['resamples']} bootstrap resamples per n)")
-    for col in ("env", "baseline", "pilot seeds", f"mean {doc['candidate']}", "mean baseline",
-                "difference D", "seeds per agent", "power there"):
-        table.add_column(Text(col))
+    console = Console(file=sys.stdout, width=120)
+    diff = ", ".join(f"{e} {d:g}" for e, d in doc["difference"].items())
+    table = Table(title=Text(f"seeds per agent per env for power {doc['power']} at alpha "
+                             f"{doc['planned_level']:.3g} (the verdict's permutation test; "
+                             f"difference {diff} {doc['units']})"))
+    for col in ("baseline", "plan", "power there", "at the pilot SD",
+                f"if the SD is at its {doc['sd_level']:.0%} upper bound", "pilot seeds"):
+        table.add_column(Text(col), justify="left" if col == "baseline" else "right")
     for p in doc["plans"]:
-        source = "" if p["difference_source"] == "--difference" else " (observed)"
-        table.add_row(p["env"], p["baseline"], f"{p['pilot_seeds'][0]}, {p['pilot_seeds'][1]}",
-                      f"{p['candidate_mean']:.4g}", f"{p['baseline_mean']:.4g}",
-                      f"{p['difference']:.4g}{source}", p["seeds_label"],
-                      f"{p['power_at_seeds']:.3f}")
+        pilots = "; ".join(f"{e}: {a}, {b}" for e, (a, b) in p["pilot_seeds"].items())
+        table.add_row(p["baseline"], p["seeds_label"], f"{p['power_at_seeds']:.2f}",
+                      p["seeds_at_pilot_sd"], p["seeds_if_sd_high"], pilots)
     console.print(table, markup=False)
-    console.print("Pilot samples stand in for the score distributions: with few pilot runs "
-                  "the estimate is rough; rerun it as seeds accumulate.", markup=False)
-
+    console.print("The plan averages the power over the spreads the few pilot runs allow; the "
+                  "last column shows how many seeds it would take if the true spread were "
+                  "at the pilots' upper bound. Rerun it as seeds accumulate.", markup=False)
