@@ -93,6 +93,9 @@ class Agent(abc.ABC):
     """
 
     action_spaces: ClassVar[tuple[type[spaces.Space], ...]] = ()
+    # True only for the uniform random agent: its runs are the floor (score 0) of every
+    # normalised score. Marked on the class, so an agent that borrows its YAML is not it.
+    random_floor: ClassVar[bool] = False
     contract_version: ClassVar[int] = CONTRACT_VERSION  # the contract this agent was written to
     Config: ClassVar[type]
 

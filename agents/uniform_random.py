@@ -15,6 +15,7 @@ class UniformRandom(Agent):
     """Draws each action uniformly from the action space, from its own seeded generator."""
 
     action_spaces = (spaces.Discrete, spaces.Box, spaces.MultiDiscrete, spaces.MultiBinary)
+    random_floor = True
 
     @dataclass
     class Config:

@@ -54,7 +54,8 @@ def write_run(sweep: Path, agent: str, env: str, seed: int, returns: list[float]
     lines = ["env_step,episode,return,discounted_return,length,episode_seed"]
     lines += [f"100,{i},{r!r},{r!r},10,{100 + i}" for i, r in enumerate(returns)]
     (folder / "eval.csv").write_text("\n".join(lines) + "\n")
-    record = {
+    record = {  # runs named "random" stand for the uniform random agent: marked as the floor
+        "random_floor": agent == "random",
         "run_id": run_id, "agent": agent, "env": env_cfg["id"], "env_config": env,
         "seed": seed, "status": status, "env_steps": 100,
         "final_score": float(np.mean(returns)) if status == "complete" else None,

@@ -54,7 +54,8 @@ def write_run(sweep: Path, agent: str, env: str, seed: int, level: float, *,
                 for _ in range(episodes)]
         lines += [f"{step},{i},{r!r},{r!r},10,{100 + i}" for i, r in enumerate(last)]
     (folder / "eval.csv").write_text("\n".join(lines) + "\n")
-    record = {
+    record = {  # runs named "random" stand for the uniform random agent: marked as the floor
+        "random_floor": agent == "random",
         "run_id": run_id, "agent": agent, "env": env_cfg["id"], "env_config": env, "seed": seed,
         "status": status, "env_steps": steps,
         "final_score": sum(last) / len(last) if status == "complete" else None,
@@ -384,3 +385,23 @@ def test_runs_of_one_agent_with_different_hyperparameters_are_different_agents(t
     assert rc == 0, err
     agents = json.loads((sweep / "report" / "summary.json").read_text())["agents"]
     assert set(agents) == {"alpha[lr=0.01]", "alpha[lr=0.001]"}
+
+
+def test_the_random_floor_is_marked_by_the_agent_class_not_its_name(tmp_path):
+    """A run of another agent that borrows random.yaml (and so its name) is not the floor:
+    the report compares it like any agent, and takes the floor from the real random run."""
+    from seedsweep.runner.analysis.runs import load_sweep
+    from seedsweep.runner.analysis.selection import select_agents
+    from seedsweep.runner.launch import api
+
+    common = ["env=cartpole", "steps=50", "eval.every=50", "eval.episodes=1", "sweep=floor"]
+    floor = api.run(["agent=random", *common], results_dir=str(tmp_path))
+    borrowed = api.run(["agent=random", "agent.entry=seedsweep.agents.dqn:DQN",
+                        "agent.replay_warmup_steps=1000", *common], results_dir=str(tmp_path))
+    assert json.loads((floor / "run.json").read_text())["random_floor"] is True
+    assert json.loads((borrowed / "run.json").read_text())["random_floor"] is False
+    sweep = load_sweep(tmp_path / "floor")
+    floors = [r.run_id for r in sweep.runs if r.is_floor]
+    assert floors == [floor.name]
+    compared = select_agents(sweep, None, include_random=False)
+    assert compared == [r.label for r in sweep.runs if r.path == borrowed]

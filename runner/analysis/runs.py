@@ -22,7 +22,6 @@ from seedsweep.runner.execution import records
 EVAL_HEADER = ["env_step", "episode", "return", "discounted_return", "length", "episode_seed"]
 
 
-RANDOM_AGENT = "random"
 
 
 SKIPPED_FOLDERS = ("report",)  # our own output; "." folders (temporary) are skipped too
@@ -46,6 +45,11 @@ class Run:
     steps: np.ndarray  # (E,) env steps of the evaluations
     curve: np.ndarray  # (E,) mean undiscounted return of each evaluation
     last_returns: np.ndarray  # episode returns of the last evaluation
+
+    @property
+    def is_floor(self) -> bool:
+        """A run of the uniform random agent (marked by its class, recorded in run.json)."""
+        return bool(self.record.get("random_floor", False))
 
     @property
     def eval_settings(self) -> tuple[int, bool]:
@@ -184,7 +188,19 @@ def load_sweep(path: Path) -> Sweep:
         raise ConfigError("sweep", f"{path} has no complete runs ({len(problems)} not complete)")
     label_variants(runs)
     name_envs(runs, problems)
+    check_floor_names(runs)
     return Sweep(path, runs, problems)
+
+
+def check_floor_names(runs: list[Run]) -> None:
+    """The random floor is marked by its agent class, not by its name; an agent of one's own
+    that shares the floor's name would be mistaken for it on every page, so refuse that."""
+    floor = {r.label: r for r in runs if r.is_floor}
+    for r in runs:
+        if not r.is_floor and r.label in floor:
+            raise ConfigError("agent.name", f"{r.label!r} names both the random floor "
+                              f"({floor[r.label].run_id}) and another agent ({r.run_id}); "
+                              "give your agent its own agent.name")
 
 
 def name_envs(runs: list[Run], problems: list[Problem]) -> None:

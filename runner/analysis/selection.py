@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 from seedsweep.configs.checks import ConfigError, suggest
 from seedsweep.runner.analysis import scores
-from seedsweep.runner.analysis.runs import RANDOM_AGENT, Problem, Run, Sweep, env_settings
+from seedsweep.runner.analysis.runs import Problem, Run, Sweep, env_settings
 from seedsweep.runner.analysis.scores import Reference
 
 
@@ -50,7 +50,7 @@ def split_names(text: str) -> list[str]:
 
 
 def _is_random(sweep: Sweep, label: str) -> bool:
-    return any(r.label == label and r.agent == RANDOM_AGENT for r in sweep.runs)
+    return any(r.label == label and r.is_floor for r in sweep.runs)
 
 
 def select_envs(sweep: Sweep, agents: list[str], wanted: str | None) -> list[str]:
@@ -158,7 +158,7 @@ def matching_random_runs(runs: list[Run], env: str, env_cfg: dict, settings: dic
     wanted = (settings["episodes"], settings["deterministic"])
     use, excluded = [], []
     for r in runs:
-        if r.env_key != env or r.agent != RANDOM_AGENT:
+        if r.env_key != env or not r.is_floor:
             continue
         if r.env_settings == env_settings(env_cfg) and r.eval_settings == wanted:
             use.append(r)
@@ -237,7 +237,7 @@ def select_pair_agents(sweep: Sweep, candidate: str,
             raise ConfigError("--baseline", "no agent named")
         return cand, chosen
     labels, _, _ = agent_names(sweep)
-    random_labels = {r.label for r in sweep.runs if r.agent == RANDOM_AGENT}
+    random_labels = {r.label for r in sweep.runs if r.is_floor}
     chosen = [lab for lab in labels if lab != cand and lab not in random_labels]
     if not chosen:
         others = [lab for lab in labels if lab != cand]

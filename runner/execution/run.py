@@ -49,6 +49,7 @@ def _run_json(p: PreparedRun, status: str, started: str, **extra: Any) -> dict[s
         "steps": p.config["steps"],
         "eval": dict(p.config["eval"]),
         "seeds": p.seeds.as_dict(),
+        "random_floor": bool(getattr(p.agent_cls, "random_floor", False)),
         "provenance": records.provenance(),
     }
     doc.update(extra)

@@ -10,6 +10,7 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text  # titles and headers as Text: agent labels contain [...]
 from seedsweep.runner.analysis import stats
+from seedsweep.runner.analysis.coverage import coverage_note
 from seedsweep.runner.analysis.report import ReportData
 
 
@@ -24,6 +25,10 @@ def print_summary(data: ReportData, target: Path, comparison: Any = None) -> Non
         agg = data.aggregates[a]
         table.add_row(a, str(data.n_runs[a]), *(_fmt_iv(agg[k]) for k in stats.STATISTICS))
     console.print(table, markup=False)
+    seeds = min((n for a in data.agents for _, n in data.per_env.get(a, {}).values()), default=0)
+    note = coverage_note(seeds, len(data.envs), confidence=data.options["confidence"])
+    if note:
+        console.print(note, markup=False)
     refs = Table(title="references per env")
     for col in ("env", "random (CI)", "reference", "source"):
         refs.add_column(col)
