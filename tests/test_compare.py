@@ -398,3 +398,21 @@ def test_allow_few_compares_single_run_cells(tmp_path, capsys):
     assert doc["comparisons"][0]["per_env"]["CartPole-v1"]["raw_iqm"]["candidate"][
         "n_seeds"] == 1
     assert decision.VERDICT_RULE == doc["verdict_rule"]
+
+
+def test_settings_that_differ_only_between_envs_keep_one_agent(tmp_path):
+    """An agent's per-env settings (e.g. another lr on acrobot) do not split it into two
+    agents; two settings on one env do (labelled by the differing key)."""
+    from seedsweep.runner.analysis.runs import load_sweep
+
+    sweep = tmp_path / "results" / "per_env"
+    for seed in range(2):
+        write_run(sweep, "tuned", "cartpole", seed, [1.0], agent_extra={"lr": 0.1})
+        write_run(sweep, "tuned", "acrobot", seed, [1.0], agent_extra={"lr": 0.2})
+        for lr in (0.1, 0.3):
+            write_run(sweep, "grid", "cartpole", seed, [1.0], agent_extra={"lr": lr})
+    labels = {(r.agent, r.env_id): set() for r in load_sweep(sweep).runs}
+    for r in load_sweep(sweep).runs:
+        labels[(r.agent, r.env_id)].add(r.label)
+    assert labels[("tuned", "CartPole-v1")] == labels[("tuned", "Acrobot-v1")] == {"tuned"}
+    assert labels[("grid", "CartPole-v1")] == {"grid[lr=0.1]", "grid[lr=0.3]"}

@@ -245,12 +245,13 @@ def load_run(folder: Path, rec: dict[str, Any] | None = None) -> Run:
 
 
 def label_variants(runs: list[Run]) -> None:
-    """Runs of one agent name with different hyperparameters are different agents: label
-    them ``name[key=value,...]`` by the keys that differ."""
-    by_agent: dict[str, list[Run]] = defaultdict(list)
+    """Runs of one agent name on one env with different hyperparameters are different
+    agents: label them ``name[key=value,...]`` by the keys that differ there. Settings that
+    differ only between envs (an agent's per-env settings) keep one agent."""
+    by_agent: dict[tuple[str, str, str], list[Run]] = defaultdict(list)
     for r in runs:
-        by_agent[r.agent].append(r)
-    for name, group in by_agent.items():
+        by_agent[(r.agent, r.env_id, r.env_config)].append(r)
+    for (name, _, _), group in by_agent.items():
         sections = [_flat(r.config.get("agent") or {}) for r in group]
         keys = sorted({k for s in sections for k in s})
         varying = [k for k in keys if len({json.dumps(s.get(k), sort_keys=True)

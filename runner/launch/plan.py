@@ -13,7 +13,13 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from seedsweep.configs.checks import ConfigError, unknown_key
-from seedsweep.runner.execution.config import compose, group_file, parse_overrides, read_yaml
+from seedsweep.runner.execution.config import (
+    compose,
+    config_dir,
+    group_file,
+    parse_overrides,
+    read_yaml,
+)
 from seedsweep.runner.execution.prepare import PreparedRun, prepare
 
 SUITE_KEYS = {"name", "description", "envs", "steps", "eval"}
@@ -41,8 +47,10 @@ def expand(overrides: Sequence[str], multirun: bool) -> list[list[str]]:
 def apply_suite(overrides: Sequence[str], extra_dirs: Sequence[Path] = ()) -> list[list[str]]:
     """Replace ``suite=NAME`` by the suite's envs, budgets and evaluation settings.
 
-    Returns override groups (one per distinct budget); keys the user gives explicitly
-    (``steps=``, ``eval.every=``, ``eval.episodes=``, ``sweep=``) win over the suite's.
+    A suite's ``steps`` is one budget, one per env (``{env: N}``), or one per env and agent
+    (``{env: {agent: N, default: N}}``), so ``-m suite=NAME agent=...`` runs every agent at its
+    own budget. Returns override groups (one per distinct budget); keys the user gives
+    explicitly (``steps=``, ``eval.every=``, ``eval.episodes=``, ``sweep=``) win.
     """
     suites = [o for o in overrides if o.split("=", 1)[0] == "suite"]
     if not suites:
@@ -51,12 +59,7 @@ def apply_suite(overrides: Sequence[str], extra_dirs: Sequence[Path] = ()) -> li
         raise ConfigError("suite", "give one suite per sweep")
     name = suites[0].split("=", 1)[1]
     path = group_file("suite", name, extra_dirs, what="suite")
-    doc = read_yaml(path, "suite") or {}
-    if not isinstance(doc, dict):
-        raise ConfigError("suite", f"{path} must hold a mapping of suite keys")
-    unknown = sorted(set(doc) - SUITE_KEYS)
-    if unknown:
-        raise unknown_key(f"suite.{unknown[0]}", unknown[0], SUITE_KEYS, "key")
+    doc = read_suite(path)
     rest = [o for o in overrides if o.split("=", 1)[0] != "suite"]
     given = {o.split("=", 1)[0].lstrip("+") for o in rest}
     if "env" in given:
@@ -65,15 +68,71 @@ def apply_suite(overrides: Sequence[str], extra_dirs: Sequence[Path] = ()) -> li
     for key, value in (doc.get("eval") or {}).items():
         if f"eval.{key}" not in given:
             common.append(f"eval.{key}={value}")
-    envs = doc.get("envs") or []
+    envs = doc["envs"]
     steps = doc.get("steps")
-    if isinstance(steps, dict) and "steps" not in given:
+    if steps is None or "steps" in given:
+        return [[f"env={','.join(envs)}", *common, *rest]]
+    if not isinstance(steps, dict):
+        return [[f"env={','.join(envs)}", f"steps={steps}", *common, *rest]]
+    agents = _agents_of(rest)
+    rest = [o for o in rest if o.split("=", 1)[0] != "agent"]
+    groups = []
+    for env in envs:
+        for agent in agents:
+            budget = suite_budget(steps, env, agent, path)
+            groups.append([f"env={env}", f"agent={agent}", f"steps={budget}", *common, *rest])
+    return groups
+
+
+SUITE_DEFAULT = "default"
+
+
+def read_suite(path: Path) -> dict:
+    """A suite file's content, checked: known keys, a non-empty list of envs, and a budget
+    for every env (and agent, where budgets are per agent)."""
+    doc = read_yaml(path, "suite") or {}
+    if not isinstance(doc, dict):
+        raise ConfigError("suite", f"{path} must hold a mapping of suite keys")
+    unknown = sorted(set(doc) - SUITE_KEYS)
+    if unknown:
+        raise unknown_key(f"suite.{unknown[0]}", unknown[0], SUITE_KEYS, "key")
+    envs = doc.get("envs")
+    if not isinstance(envs, list) or not envs or not all(isinstance(e, str) for e in envs):
+        raise ConfigError("suite.envs", f"expected a non-empty list of env names in {path}")
+    steps = doc.get("steps")
+    if isinstance(steps, dict):
         missing = [e for e in envs if e not in steps]
         if missing:
             raise ConfigError("suite.steps", f"no budget for env {missing[0]!r} in {path}")
-        return [[f"env={e}", f"steps={steps[e]}", *common, *rest] for e in envs]
-    budget = [f"steps={steps}"] if steps is not None and "steps" not in given else []
-    return [[f"env={','.join(envs)}", *budget, *common, *rest]]
+    return doc
+
+
+def suite_budget(steps: dict, env: str, agent: str, path: Path) -> int:
+    """The budget of ``agent`` on ``env`` in a suite's ``steps`` table."""
+    budget = steps[env]
+    if isinstance(budget, dict):
+        if agent in budget:
+            budget = budget[agent]
+        elif SUITE_DEFAULT in budget:
+            budget = budget[SUITE_DEFAULT]
+        else:
+            raise ConfigError("suite.steps", f"no budget for agent {agent!r} on {env!r} in "
+                              f"{path} (and no {SUITE_DEFAULT!r})")
+    if isinstance(budget, bool) or not isinstance(budget, int) or budget < 1:
+        raise ConfigError("suite.steps", f"{env}: expected a positive integer, got {budget!r}")
+    return budget
+
+
+def _agents_of(overrides: Sequence[str]) -> list[str]:
+    """The agent config names an override list selects (``agent=a,b``; default: the one in
+    configs/config.yaml)."""
+    for o in parse_overrides(overrides):
+        if o.get_key_element() == "agent":
+            if o.is_sweep_override():
+                return [str(v) for v in o.sweep_string_iterator()]
+            return [o.get_value_element_as_str()]
+    defaults = read_yaml(config_dir() / "config.yaml", "config").get("defaults", [])
+    return [next(d["agent"] for d in defaults if isinstance(d, dict) and "agent" in d)]
 
 
 def plan(overrides: Sequence[str], multirun: bool = False,

@@ -3,7 +3,9 @@
 Keys: ``name``, ``version`` (int; results go to ``<name>-v<version>`` unless ``sweep=`` is
 given), ``agents``, ``envs``, ``seeds`` (a list or ``range(n)``), optional ``steps`` (one
 budget, or one per agent), ``overrides`` (a list applied to every run) and ``grid`` (extra
-swept keys, ``key: [values]``). Command-line overrides are applied after the file's.
+swept keys, ``key: [values]``). Instead of ``envs`` a plan may name a ``suite``: its envs, budgets
+(per env and agent) and evaluation settings. Command-line overrides are applied after the
+file's.
 """
 
 from __future__ import annotations
@@ -22,7 +24,8 @@ from seedsweep.runner.execution.config import (
     read_yaml,
 )
 
-KEYS = {"name", "version", "agents", "envs", "seeds", "steps", "overrides", "grid", "description"}
+KEYS = {"name", "version", "agents", "envs", "suite", "seeds", "steps", "overrides", "grid",
+        "description"}
 RANGE = re.compile(r"^range\(\s*(\d+)\s*(?:,\s*(\d+)\s*)?\)$")
 
 
@@ -80,9 +83,13 @@ def read_plan(path: Path) -> dict[str, Any]:
     unknown = sorted(set(doc) - KEYS)
     if unknown:
         raise unknown_key(f"plan.{unknown[0]}", unknown[0], KEYS, "key")
-    for key in ("name", "version", "agents", "envs", "seeds"):
+    for key in ("name", "version", "agents", "seeds"):
         if key not in doc:
             raise ConfigError(f"plan.{key}", f"required (in {path})")
+    if ("envs" in doc) == ("suite" in doc):
+        raise ConfigError("plan.envs", f"give envs or a suite, one of the two (in {path})")
+    if "suite" in doc and "steps" in doc:
+        raise ConfigError("plan.steps", "a plan with a suite takes the suite's budgets")
     if not isinstance(doc["name"], str) or not SAFE_NAME.match(doc["name"]):
         raise ConfigError("plan.name", f"must be letters, digits, '_', '-', '.' "
                           f"(got {doc['name']!r})")
@@ -105,9 +112,9 @@ def read_plan(path: Path) -> dict[str, Any]:
 def expand_plan(path: Path, cli_overrides: list[str]) -> list[list[str]]:
     """Override lists (each for ``-m``) that together make the sweep of a plan file."""
     doc = read_plan(path)
-    base = [f"env={_values('plan.envs', doc['envs'])}",
-            f"seed={_seeds(doc['seeds'])}",
-            f"sweep={doc['name']}-v{doc['version']}"]
+    where = (f"suite={doc['suite']}" if "suite" in doc
+             else f"env={_values('plan.envs', doc['envs'])}")
+    base = [where, f"seed={_seeds(doc['seeds'])}", f"sweep={doc['name']}-v{doc['version']}"]
     base += list(doc.get("overrides") or [])
     for key, values in (doc.get("grid") or {}).items():
         base.append(f"{key}={_values(f'plan.grid.{key}', values)}")
