@@ -1,0 +1,98 @@
+"""Regression check against a baseline card: rerun a few seeds of chosen cells and say, per
+agent x env, whether the new scores are consistent with the card.
+
+Run it after any change under ``agents/`` (or ``envs/``)::
+
+    .venv/bin/python benchmarks/card_regression.py benchmarks/cards/card_classic-v1.json \\
+        --agents dqn,ppo --envs CartPole-v1 --seeds 3
+
+The new runs use seeds the card did not (``--first-seed``, default 100), the card's budget
+and evaluation settings, through ``seedsweep run`` (so they resume if interrupted). Per cell
+it prints the card's IQM and interval, the new final scores and their IQM, and the verdict's
+own test (the stratified permutation test, one env) of new against card seeds: "consistent"
+when it does not reject at alpha (default 0.05), else "changed: better/worse". With 3 new
+seeds against 10 card seeds the test can reject (smallest two-sided p = 2 / C(13, 3) =
+0.007), but only a large change will be seen: say so when you quote it.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+from seedsweep.runner.analysis import scores
+from seedsweep.runner.analysis.permutation import stratified_permutation_test
+from seedsweep.runner.analysis.runs import load_sweep
+from seedsweep.runner.analysis.stats import interquartile_mean
+
+
+def run_cells(cells: list[dict], card: str, seeds: list[int], results_dir: Path,
+              workers: int) -> Path:
+    sweep = f"regression-{card}"
+    for c in cells:
+        ev = c["eval"]
+        cmd = [sys.executable, "-m", "seedsweep.runner.commands.main", "run", "-m",
+               f"agent={c['agent']}", f"env={c['env_config']}", f"steps={c['steps']}",
+               f"eval.every={ev['every']}", f"eval.episodes={ev['episodes']}",
+               f"seed={','.join(map(str, seeds))}", f"sweep={sweep}",
+               f"results_dir={results_dir}", f"workers={workers}", "--progress=lines"]
+        subprocess.run(cmd, check=False)
+    return results_dir / sweep
+
+
+def main(argv: list[str] | None = None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("card", type=Path, help="a card JSON written by baseline_card.py")
+    p.add_argument("--agents", default=None, help="comma-separated agents (default: all)")
+    p.add_argument("--envs", default=None, help="comma-separated gymnasium ids (default: all)")
+    p.add_argument("--seeds", type=int, default=3, help="new seeds per cell (3)")
+    p.add_argument("--first-seed", type=int, default=100, help="first new seed (100)")
+    p.add_argument("--alpha", type=float, default=0.05)
+    p.add_argument("--workers", type=int, default=1)
+    p.add_argument("--results-dir", type=Path, default=Path("results"))
+    args = p.parse_args(argv)
+    card = json.loads(args.card.read_text())
+    wanted_agents = set(args.agents.split(",")) if args.agents else None
+    wanted_envs = set(args.envs.split(",")) if args.envs else None
+    cells = [c for c in card["cells"]
+             if (wanted_agents is None or c["agent"] in wanted_agents)
+             and (wanted_envs is None or c["env"] in wanted_envs)]
+    if not cells:
+        print("no card cell matches --agents/--envs", file=sys.stderr)
+        return 2
+    seeds = list(range(args.first_seed, args.first_seed + args.seeds))
+    folder = run_cells(cells, card["sweep"], seeds, args.results_dir, args.workers)
+    runs = load_sweep(folder).runs
+    print(f"\n## {card['sweep']}: {args.seeds} new seeds ({seeds[0]}-{seeds[-1]}) per cell\n")
+    print("| agent | env | card IQM [95% CI] (seeds) | new finals | new IQM | p | |")
+    print("|---|---|---|---|---|---|---|")
+    changed = 0
+    for c in cells:
+        new = np.array([scores.score_run(r, "final") for r in runs
+                        if r.label == c["agent"] and r.env_id == c["env"]
+                        and r.seed in seeds])
+        if new.size == 0:
+            print(f"| {c['agent']} | {c['env']} | | (no complete new run) | | | missing |")
+            changed += 1
+            continue
+        old = np.array(c["finals"])
+        test = stratified_permutation_test([new], [old], rng=np.random.default_rng(0))
+        if test.p_value > args.alpha:
+            word = "consistent"
+        else:
+            word = "changed: " + ("better" if test.statistic > 0.5 else "worse")
+            changed += 1
+        print(f"| {c['agent']} | {c['env']} | {c['iqm_final']:.4g} [{c['iqm_final_low']:.4g}, "
+              f"{c['iqm_final_high']:.4g}] ({old.size}) | "
+              f"{', '.join(f'{v:.4g}' for v in new)} | {interquartile_mean(new):.4g} | "
+              f"{test.p_value:.3g} | {word} |")
+    print(f"\n{changed} of {len(cells)} cell(s) changed at alpha {args.alpha}.")
+    return 1 if changed else 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
