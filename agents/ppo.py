@@ -47,17 +47,16 @@ import torch
 from gymnasium import spaces
 from seedsweep.agents.base import Agent, Step, require
 from seedsweep.agents.common.distributions import (
-    POLICY_OUT_GAIN,
-    VALUE_OUT_GAIN,
     ActionSampler,
     PolicyHead,
     PolicyNetworkConfig,
     policy_supports,
 )
-from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp
-from seedsweep.agents.common.optim import adam, clip_grad_norm
+from seedsweep.agents.common.networks import NumpyMLP, flat_dim
+from seedsweep.agents.common.optim import adam
 from seedsweep.agents.common.returns import gae
 from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
+from seedsweep.agents.common.rollouts import PolicyValueNets, Rollout
 
 
 class PPO(Agent):
@@ -129,29 +128,20 @@ class PPO(Agent):
         self.rng, self.gen = make_generators(seed)
         self.head = PolicyHead(action_space, c.gaussian_std, c.gaussian_log_std_start,
                                c.gaussian_squash)
-        k = self.head.out_dim
-        if c.shared_torso:
-            self.net = mlp(self.obs_dim, c.hidden, k + 1, self.gen, c.activation, c.init,
-                           VALUE_OUT_GAIN)
-            if c.init == "orthogonal":  # policy rows of the joint output layer: small gain
-                with torch.no_grad():
-                    self.net[-1].weight[:k] *= POLICY_OUT_GAIN / VALUE_OUT_GAIN
-            self.value_net = None
-        else:
-            self.net = mlp(self.obs_dim, c.hidden, k, self.gen, c.activation, c.init,
-                           POLICY_OUT_GAIN)
-            self.value_net = mlp(self.obs_dim, c.hidden, 1, self.gen, c.activation, c.init,
-                                 VALUE_OUT_GAIN)
+        self.nets = PolicyValueNets(self.obs_dim, self.head, c, self.gen)
+        self.net, self.value_net = self.nets.net, self.nets.value_net
+        self.policy_params, self.params = self.nets.policy_params, self.nets.params
         self._np_policy = NumpyMLP(self.net)
-        self.policy_params = [*self.net.parameters(), *self.head.parameters()]
-        self.params = list(self.policy_params)
-        if self.value_net is not None:
-            self.params += list(self.value_net.parameters())
         self.opt = adam(self.params, c.lr, c.adam_eps)
         self.sampler = ActionSampler(self.head, self.gen)
-        self._alloc_rollout()
+        self.rollout = Rollout(c.rollout_steps, c.num_envs, self.obs_dim, self.head,
+                               self.sampler)
         self.updates = 0
         self.env_steps = 0  # observed by this agent, all envs: the lr schedule's clock
+
+    @property
+    def _t(self) -> int:
+        return self.rollout.t
 
     # -- acting -----------------------------------------------------------------------------
     def act(self, obs: np.ndarray, explore: bool) -> np.ndarray:
@@ -160,21 +150,9 @@ class PPO(Agent):
 
     # -- learning ---------------------------------------------------------------------------
     def observe(self, step: Step) -> dict[str, float]:
-        t, n = self._t, self.config.num_envs
-        if len(step.rewards) != n:
-            raise ValueError(f"expected {n} envs per step (num_envs), got {len(step.rewards)}")
-        r = self._rollout
-        r["obs"][t] = np.asarray(step.obs, dtype=np.float32).reshape(n, -1)
-        r["actions"][t] = _as_actions(step.actions, self.head, n)
-        if self.sampler.needs_pre_squash:
-            r["pre"][t] = self.sampler.pre_squash_for(r["actions"][t])
-        r["rewards"][t] = step.rewards
-        r["terminated"][t] = step.terminated
-        r["truncated"][t] = step.truncated
-        r["next_obs"][t] = np.asarray(step.next_obs, dtype=np.float32).reshape(n, -1)
-        self._t += 1
-        self.env_steps += n
-        if self._t == self.config.rollout_steps:
+        self.rollout.add(step)
+        self.env_steps += self.config.num_envs
+        if self.rollout.full:
             return self._update()
         return {}
 
@@ -189,33 +167,13 @@ class PPO(Agent):
     def rollout_batch(self) -> dict[str, Any]:
         """The stored rollout (first ``t`` steps) flattened, with old values, GAE advantages
         and λ-returns (advantages not yet standardised)."""
-        c, T = self.config, self._t
-        if T == 0:
-            raise ValueError("the rollout is empty; observe at least one step first")
-        r = {k: v[:T] for k, v in self._rollout.items()}
-        n = c.num_envs
-        with torch.no_grad():
-            values = self._values(torch.from_numpy(r["obs"].reshape(T * n, -1)))
-            values = values.double().numpy().reshape(T, n)
-            next_values = np.zeros_like(values)
-            next_values[:-1] = values[1:]
-            need = r["truncated"].copy()  # a truncated episode continues from its final obs
-            need[-1] = True  # the rollout's end bootstraps from the next obs
-            if need.any():
-                x = torch.from_numpy(r["next_obs"][need])
-                next_values[need] = self._values(x).double().numpy()
+        c = self.config
+        r = self.rollout.filled()
+        values, next_values = self.rollout.bootstrap_values(self.nets)
         advantages = gae(r["rewards"], values, next_values, r["terminated"], r["truncated"],
                          c.gamma, c.advantage_lambda)
-        returns = advantages + values
-        flat = T * n
-        return {
-            "obs": torch.from_numpy(r["obs"].reshape(flat, -1)),
-            "actions": torch.from_numpy(r["actions"].reshape(flat, *r["actions"].shape[2:])),
-            "pre": torch.from_numpy(r["pre"].reshape(flat, -1)) if "pre" in r else None,
-            "values": torch.from_numpy(values.reshape(flat).astype(np.float32)),
-            "advantages": torch.from_numpy(advantages.reshape(flat).astype(np.float32)),
-            "returns": torch.from_numpy(returns.reshape(flat).astype(np.float32)),
-        }
+        return self.rollout.flat_batch(values=values, advantages=advantages,
+                                       returns=advantages + values)
 
     def minibatch_losses(self, batch: dict[str, Any], idx: torch.Tensor) -> dict[str, Any]:
         """Loss terms on the samples ``idx`` of a prepared batch (with ``old_log_prob``),
@@ -237,7 +195,7 @@ class PPO(Agent):
         c = self.config
         lr = self.current_lr()
         batch = self.rollout_batch()
-        self._t = 0
+        self.rollout.t = 0
         for group in self.opt.param_groups:
             group["lr"] = lr
         adv = batch["advantages"]
@@ -262,12 +220,8 @@ class PPO(Agent):
                          - c.entropy_weight * loss["entropy"])
                 self.opt.zero_grad(set_to_none=True)
                 total.backward()
-                if self.value_net is None:  # one network: one gradient, clipped as a whole
-                    sums["grad_norm"] += clip_grad_norm(self.params, c.grad_clip_norm)
-                else:  # two networks: the value gradient must not shrink the policy's
-                    sums["grad_norm"] += clip_grad_norm(self.policy_params, c.grad_clip_norm)
-                    sums["value_grad_norm"] += clip_grad_norm(self.value_net.parameters(),
-                                                              c.grad_clip_norm)
+                for key, norm in self.nets.clip_gradients(c.grad_clip_norm).items():
+                    sums[key] += norm
                 self.opt.step()
                 for name in names:
                     sums[name] += float(loss[name].detach())
@@ -282,69 +236,28 @@ class PPO(Agent):
     def _score(self, batch: dict[str, Any], idx: torch.Tensor
                ) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor]:
         """(log π(a|s), entropy, V(s)) of the samples ``idx`` under the current networks."""
-        out, values = self._forward(batch["obs"][idx])
+        out, values = self.nets.forward(batch["obs"][idx])
         dist = self.head(out)
         pre = None if batch["pre"] is None else batch["pre"][idx]
         return dist.log_prob(batch["actions"][idx], pre), dist.entropy(), values
 
-    def _forward(self, obs: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
-        """(policy outputs, values) of a batch of flat observations."""
-        k = self.head.out_dim
-        if self.value_net is None:
-            y = self.net(obs)
-            return y[:, :k], y[:, k]
-        return self.net(obs), self.value_net(obs).squeeze(-1)
-
-    def _values(self, obs: torch.Tensor) -> torch.Tensor:
-        if self.value_net is None:
-            return self.net(obs)[:, self.head.out_dim]
-        return self.value_net(obs).squeeze(-1)
-
-    def _alloc_rollout(self) -> None:
-        c = self.config
-        shape = (c.rollout_steps, c.num_envs)
-        action_shape = () if self.head.discrete else (self.head.action_dim,)
-        action_dtype = np.int64 if self.head.discrete else np.float32
-        self._rollout: dict[str, np.ndarray] = {
-            "obs": np.zeros((*shape, self.obs_dim), dtype=np.float32),
-            "actions": np.zeros((*shape, *action_shape), dtype=action_dtype),
-            "rewards": np.zeros(shape, dtype=np.float64),
-            "terminated": np.zeros(shape, dtype=bool),
-            "truncated": np.zeros(shape, dtype=bool),
-            "next_obs": np.zeros((*shape, self.obs_dim), dtype=np.float32),
-        }
-        if self.sampler.needs_pre_squash:
-            self._rollout["pre"] = np.zeros((*shape, self.head.action_dim), dtype=np.float32)
-        self._t = 0
-
-    # -- state ------------------------------------------------------------------------------
     def state_dict(self) -> dict[str, Any]:
-        t = self._t
         return {
-            "net": self.net.state_dict(),
-            "value_net": None if self.value_net is None else self.value_net.state_dict(),
-            "head": self.head.state_dict(),
+            **self.nets.state_dict(),
             "opt": self.opt.state_dict(),
             "rng": generator_states(self.rng, self.gen),
             "sampler": self.sampler.state_dict(),
-            "rollout_t": t,
-            "rollout": {k: torch.from_numpy(v[:t].copy()) for k, v in self._rollout.items()},
+            **self.rollout.state_dict(),
             "updates": self.updates,
             "env_steps": self.env_steps,
         }
 
     def load_state_dict(self, state: dict[str, Any]) -> None:
-        self.net.load_state_dict(state["net"])
-        if self.value_net is not None:
-            self.value_net.load_state_dict(state["value_net"])
-        self.head.load_state_dict(state["head"])
+        self.nets.load_state_dict(state)
         self.opt.load_state_dict(state["opt"])
         load_generator_states(state["rng"], self.rng, self.gen)
         self.sampler.load_state_dict(state["sampler"])
-        t = int(state["rollout_t"])
-        for k, v in state["rollout"].items():
-            self._rollout[k][:t] = v.numpy()
-        self._t = t
+        self.rollout.load_state_dict(state)
         self.updates = int(state["updates"])
         self.env_steps = int(state["env_steps"])
 
@@ -378,10 +291,3 @@ def value_loss(values: torch.Tensor, old_values: torch.Tensor, returns: torch.Te
 
 def _finite_above(x: float, low: float) -> bool:
     return math.isfinite(x) and x > low
-
-
-def _as_actions(actions: np.ndarray, head: PolicyHead, n: int) -> np.ndarray:
-    """Env actions in the dtype and shape the head scores: int64 ``(n,)``, float32 ``(n, d)``."""
-    if head.discrete:
-        return np.asarray(actions).astype(np.int64).reshape(n)
-    return np.asarray(actions, dtype=np.float32).reshape(n, head.action_dim)

@@ -39,6 +39,7 @@ from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp
 from seedsweep.agents.common.optim import adam, clip_grad_norm
 from seedsweep.agents.common.returns import discounted_returns
 from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
+from seedsweep.agents.common.rollouts import as_actions
 
 
 class Reinforce(Agent):
@@ -77,7 +78,8 @@ class Reinforce(Agent):
         c = config
         self.obs_dim = flat_dim(observation_space)
         self.rng, self.gen = make_generators(seed)
-        self.head = PolicyHead(action_space, c.gaussian_std, c.gaussian_log_std_start, c.gaussian_squash)
+        self.head = PolicyHead(action_space, c.gaussian_std, c.gaussian_log_std_start,
+                               c.gaussian_squash)
         self.policy_net = mlp(self.obs_dim, c.hidden, self.head.out_dim, self.gen,
                               c.activation, c.init, POLICY_OUT_GAIN)
         self.value_net = mlp(self.obs_dim, c.hidden, 1, self.gen, c.activation, c.init,
@@ -100,7 +102,7 @@ class Reinforce(Agent):
     def observe(self, step: Step) -> dict[str, float]:
         n = len(step.rewards)
         obs = np.asarray(step.obs, dtype=np.float32).reshape(n, -1)
-        actions = _as_actions(step.actions, self.head, n)
+        actions = as_actions(step.actions, self.head, n)
         pre = self.sampler.pre_squash_for(actions)
         term = np.asarray(step.terminated, dtype=bool)
         trunc = np.asarray(step.truncated, dtype=bool)
@@ -203,13 +205,6 @@ class Reinforce(Agent):
         self._partial = [_episode_from_state(e) for e in state["partial"]]
         self._completed = [_episode_from_state(e) for e in state["completed"]]
         self.updates = int(state["updates"])
-
-
-def _as_actions(actions: np.ndarray, head: PolicyHead, n: int) -> np.ndarray:
-    """Env actions in the dtype and shape the head scores: int64 ``(n,)``, float32 ``(n, d)``."""
-    if head.discrete:
-        return np.asarray(actions).astype(np.int64).reshape(n)
-    return np.asarray(actions, dtype=np.float32).reshape(n, head.action_dim)
 
 
 def _standardise(x: torch.Tensor) -> torch.Tensor:
