@@ -92,6 +92,8 @@ def interval_cell(iv: Any, raw: bool = False, n: int | None = None, flag: str = 
         p, ci = f"{point:.4g}", f"[{low:.4g}, {high:.4g}]"
     else:
         p, ci = f"{point:{'+' if signed else ''}.3f}", f"[{low:.3f}, {high:.3f}]"
+    if not flag and low == high:
+        flag = text.ZERO_WIDTH_NOTE
     count = f' <span class="n">({n})</span>' if n is not None else ""
     mark = f' <span class="flag" title="{esc(flag)}">no spread</span>' if flag else ""
     return Raw(f'<span class="pt">{esc(p)}</span> <span class="ci">{esc(ci)}</span>'

@@ -69,6 +69,10 @@ def no_spread_note(n_runs: int, n_envs: int) -> str:
     return f"all {n_runs} runs scored the same{where}: no spread, not certainty"
 
 
+ZERO_WIDTH_NOTE = ("zero-width interval: every resample gave the same value; with few runs "
+                   "that is agreement between them, not certainty")
+
+
 def random_score(ref: Any) -> str:
     """The random score of an env as every table shows it: the mean return over the random
     agent's evaluation episodes with its Student-t interval (the number scores are
@@ -133,13 +137,14 @@ def next_steps(sweep: str, page: str, candidate: str | None,
         out.append(f"compare a candidate with the baselines: seedsweep report {sweep} "
                    f"--candidate {shell_word(name)}")
         return out
-    for c in comparisons or []:
-        if c["verdict"] in ("better", "worse"):
-            continue
-        cand, base = shell_word(candidate), shell_word(c["baseline"])
-        out.append(f"plan seeds for {cand} vs {base}: seedsweep plan-seeds {sweep} "
-                   f"--candidate {cand} --baseline {base} --difference D (the smallest "
-                   "difference that matters to you)")
+    undecided = [c["baseline"] for c in comparisons or []
+                 if c["verdict"] not in ("better", "worse")]
+    if undecided:
+        cand, base = shell_word(candidate), shell_word(undecided[0])
+        more = f" (likewise for {', '.join(undecided[1:])})" if len(undecided) > 1 else ""
+        out.append(f"plan the seeds a decisive answer needs: seedsweep plan-seeds {sweep} "
+                   f"--candidate {cand} --baseline {base} --difference D{more}, D being the "
+                   "smallest difference in score that matters to you")
     return out
 
 
