@@ -58,6 +58,8 @@ def render(data: Any, summary: dict[str, Any], figures: dict[str, tuple[bytes, b
     ranking = sorted(((a, data.aggregates[a]["iqm"]) for a in data.agents),
                      key=lambda item: -item[1].point)
     left_out = len(data.problems)
+    compared = sum(data.n_runs[a] for a in data.agents)
+    randoms = len(data.runs) - compared
     parts = [
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
         "<meta name='viewport' content='width=device-width, initial-scale=1'>",
@@ -65,7 +67,8 @@ def render(data: Any, summary: dict[str, Any], figures: dict[str, tuple[bytes, b
         "</head><body>",
         f"<h1>Sweep <code>{esc(data.sweep.name)}</code></h1>",
         f"<p class='lede'>{len(data.agents)} agents compared on {len(data.envs)} env"
-        f"{'s' if len(data.envs) != 1 else ''}; {len(data.runs)} complete runs used; "
+        f"{'s' if len(data.envs) != 1 else ''}: {compared} runs"
+        + (f" and {randoms} random-agent runs" if randoms else "") + "; "
         f"<span class='{'bad' if left_out else ''}'>{left_out} left out</span>. Folder "
         f"<code>{esc(folder)}</code>.</p>",
         verdict_block(doc, folder, note, ranking, colours),
@@ -171,7 +174,8 @@ def _per_env(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str
     ref_rows, details = [], []
     for e in data.envs:
         r = data.references[e]
-        ref_rows.append([e, random_cell(r), f"{r.reference:.6g}", r.source])
+        ref_rows.append([e, random_cell(r), f"{r.reference:.6g}",
+                         text.SOURCES.get(r.source, r.source)])
         src = (f"{len(r.random_runs)} random runs in the sweep" if r.random_source == "sweep"
                else "measured once into results/_reference_cache/")
         details.append(f"{e} (config {r.env_config}): random from {src}, {r.random_episodes} "
@@ -192,7 +196,7 @@ def _per_env(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str
     return "\n".join([
         "<section id='per-env'><h2>Per env</h2>",
         f"<h3>Random and reference scores ({esc(conf)})</h3>",
-        table(["env", f"random ({conf})", "reference", "source"], ref_rows),
+        table(["env", f"random ({conf})", "reference", "reference from"], ref_rows),
         notes(details),
         f"<h3>Raw scores: IQM over seeds, {esc(conf)} (seeds)</h3>",
         table(["agent", *data.envs], rows),

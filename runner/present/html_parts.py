@@ -47,13 +47,13 @@ nav.toc{font-size:.9em;color:var(--muted);margin:.6em 0 0} nav.toc a{color:inher
 .verdict ol>li{border-left:6px solid;padding:.35em .8em;margin:.6em 0;background:#fff}
 .badge{display:inline-block;font-weight:700;letter-spacing:.04em;text-transform:uppercase;
  padding:.05em .5em;border-radius:3px;margin-right:.35em;border:2px solid}
-.v-better{border-color:#0b5d9e} .v-better .badge{color:#fff;background:#0b5d9e;
- border-color:#0b5d9e}
-.v-worse{border-color:#a8400b;border-left-style:double;border-left-width:8px}
+.verdict li.v-better{border-left-color:#0b5d9e}
+.v-better .badge{color:#fff;background:#0b5d9e;border-color:#0b5d9e}
+.verdict li.v-worse{border-left:9px double #a8400b}
 .v-worse .badge{color:#fff;background:#a8400b;border-color:#a8400b}
-.v-insufficient{border-color:#7d7d7d;border-left-style:dashed}
+.verdict li.v-insufficient{border-left:6px dashed #7d7d7d}
 .v-insufficient .badge{color:#333;background:#fff;border-color:#7d7d7d;border-style:dashed}
-.v-cannot{border-color:#7d7d7d;border-left-style:dotted}
+.verdict li.v-cannot{border-left:6px dotted #7d7d7d}
 .v-cannot .badge{color:#333;background:#fff;border-color:#7d7d7d;border-style:dotted}
 .vline{font-size:1.05em} .why{margin:.2em 0} .evidence{font-size:.88em;color:var(--muted);
  overflow-wrap:anywhere}

@@ -20,9 +20,6 @@ from rich.text import Text  # cells and headers as Text: agent labels contain [.
 from seedsweep.runner.analysis.report import ReportData
 from seedsweep.runner.present import text
 
-SOURCES = {"env_spec": "gymnasium spec reward_threshold", "oracle": "exact oracle optimum",
-           "user": "env.reference (set by you)"}
-
 
 def _console() -> Console:
     """The terminal's width when there is one; 120 columns in a pipe or file."""
@@ -97,7 +94,7 @@ def print_summary(data: ReportData, target: Path, comparison: Any = None) -> Non
     for e in data.envs:
         r = data.references[e]
         refs.add_row(Text(e), Text(text.random_score(r)), Text(f"{r.reference:.4g}"),
-                     Text(SOURCES.get(r.source, r.source)))
+                     Text(text.SOURCES.get(r.source, r.source)))
     _show(console, refs)
     if data.problems:
         _say(console, f"{len(data.problems)} run(s) left out; listed in the report.")

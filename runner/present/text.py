@@ -20,6 +20,8 @@ _coverage = (importlib.import_module(_COVERAGE_MODULE)
 
 SCALE_NOTE = "normalised scores: 0 = the random agent, 1 = the reference score of each env"
 GAP_NOTE = "optimality gap: mean shortfall below the reference; lower is better"
+SOURCES = {"env_spec": "gymnasium spec reward_threshold", "oracle": "exact oracle optimum",
+           "user": "env.reference (set by you)"}
 STAT_LABELS = {"iqm": "IQM", "mean": "mean", "median": "median",
                "optimality_gap": "optimality gap"}
 VERDICT_SIGNS = {"better": "▲", "worse": "▼", "insufficient evidence": "≈",

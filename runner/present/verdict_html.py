@@ -61,15 +61,16 @@ def _verdicts(doc: Mapping[str, Any], folder: str, colours: Mapping[str, str]) -
         word = c["verdict"]
         sign = text.VERDICT_SIGNS.get(word, "")
         diff, p = c["iqm_difference"], c["probability_of_improvement"]
-        zero = (f' <span class="flag">{esc(text.no_spread_note(_runs(c), len(doc["envs"])))}'
-                "</span>" if diff.get("zero_width") else "")
+        zero = (f'<p class="flag">IQM difference: '
+                f'{esc(text.no_spread_note(_runs(c), len(doc["envs"])))}</p>'
+                if diff.get("zero_width") else "")
         out.append(
             f'<li class="v {VERDICT_CLASS.get(word, "v-insufficient")}">'
             f'<p class="vline"><span class="badge">{esc(sign)} {esc(word)}</span> '
             f"{esc(cand)} vs {swatch(c['baseline'], colours)}: IQM difference "
             f"{interval_cell(_signed(diff), signed=True)}, "
             f"P({esc(cand)} &gt; {esc(c['baseline'])}) "
-            f"{interval_cell(p)}{zero}</p>"
+            f"{interval_cell(p)}</p>{zero}"
             f'<p class="why">{esc(c["reason"])}</p>'
             f'<p class="evidence">Evidence: {esc(c["evidence"])}</p></li>')
     out.append("</ol>")
