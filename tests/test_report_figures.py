@@ -107,7 +107,7 @@ def test_colours_ignore_order_keep_random_grey_and_never_clash():
     assert palette.agent_colours(sorted(names)) == base
     assert base["random"] == base["random[gamma=0.9]"] == palette.RANDOM_GREY
     others = [c for n, c in base.items() if not palette.is_random(n)]
-    assert len(set(others)) == len(others)  # 7 agents, 9 colours: no two alike
+    assert len(set(others)) == len(others)  # 7 agents, 8 colours: no two alike
 
 
 def _report_data(sweep: Path):
