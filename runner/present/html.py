@@ -160,6 +160,8 @@ def _pairs(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str:
             rows.append([swatch(x, colours), swatch(y, colours), interval_cell(p), reading])
     body = (table(["agent X", "agent Y", f"P(X > Y), {conf}", "reading"], rows) if rows
             else "<p>One agent: no pair to compare.</p>")
+    if any(text.zero_width(p) for p in summary["probability_of_improvement"]):
+        body += notes([f"no spread: {text.ZERO_WIDTH_NOTE}."])
     return "\n".join([
         "<section id='pairs'><h2>Head to head (probability of improvement)</h2>",
         "<p>P(X &gt; Y): the probability that a run of X scores higher than a run of Y on "
@@ -181,7 +183,7 @@ def _per_env(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str
         details.append(f"{e} (config {r.env_config}): random from {src}, {r.random_episodes} "
                        f"episodes; reference: {r.detail}." + (f" {r.random_note}."
                                                                if r.random_note else ""))
-    rows = []
+    rows, flat = [], []
     for a in data.shown:
         cells = summary["per_env"].get(a, {})
         row: list[Any] = [swatch(a, colours)]
@@ -189,7 +191,11 @@ def _per_env(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str
             if is_random(a):
                 row.append(random_cell(data.references[e]))
             elif e in cells:
-                row.append(interval_cell(cells[e], raw=True, n=cells[e]["n_seeds"]))
+                n = cells[e]["n_seeds"]
+                flag = text.no_spread_note(n, 1) if text.zero_width(cells[e]) else ""
+                if flag:
+                    flat.append(f"{a} on {e}: {flag}")
+                row.append(interval_cell(cells[e], raw=True, n=n, flag=flag))
             else:
                 row.append("-")
         rows.append(row)
@@ -200,6 +206,7 @@ def _per_env(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str
         notes(details),
         f"<h3>Raw scores: IQM over seeds, {esc(conf)} (seeds)</h3>",
         table(["agent", *data.envs], rows),
+        notes(flat),
         notes(["random: the mean return over the random agent's evaluation episodes with its "
                f"Student-t {conf}, the same number every normalised score is measured from."]
               if any(is_random(a) for a in data.shown) else []),

@@ -64,6 +64,8 @@ def _verdicts(doc: Mapping[str, Any], folder: str, colours: Mapping[str, str]) -
         zero = (f'<p class="flag">IQM difference: '
                 f'{esc(text.no_spread_note(_runs(c), len(doc["envs"])))}</p>'
                 if diff.get("zero_width") else "")
+        if text.zero_width(p):
+            zero += f'<p class="flag">P: {esc(text.ZERO_WIDTH_NOTE)}</p>'
         out.append(
             f'<li class="v {VERDICT_CLASS.get(word, "v-insufficient")}">'
             f'<p class="vline"><span class="badge">{esc(sign)} {esc(word)}</span> '
