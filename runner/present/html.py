@@ -238,6 +238,7 @@ def _protocol(data: Any, summary: dict[str, Any]) -> str:
     for env, ev in data.eval_settings.items():
         rows.append([f"evaluation on {env}", f"{ev['episodes']} episodes per evaluation, "
                      f"deterministic={str(ev['deterministic']).lower()}"])
+    rows = [[Raw(f'<span class="nm">{esc(k)}</span>'), v] for k, v in rows]
     return ("<section id='protocol'><h2>Protocol</h2>" + table(["setting", "value"], rows,
                                                               ["l", "l"]) + "</section>")
 
@@ -258,8 +259,11 @@ def _provenance(data: Any) -> str:
         groups[json.dumps(r.record.get("provenance") or {}, sort_keys=True)] += 1
     provs = [(json.loads(blob), n) for blob, n in groups.most_common()]
     header = ["field"] + [f"{n} run{'s' if n != 1 else ''}" for _, n in provs]
-    rows = [[k] + [Raw(f"<code>{esc(p.get(k, ''))}</code>") if k.endswith(("version", "commit"))
-                   else p.get(k, "") for p, _ in provs] for k in PROVENANCE_KEYS]
+    rows = []
+    for k in PROVENANCE_KEYS:
+        values = [Raw(f"<code>{esc(p.get(k, ''))}</code>") if k.endswith(("version", "commit"))
+                  else p.get(k, "") for p, _ in provs]
+        rows.append([Raw(f'<span class="nm">{esc(k)}</span>'), *values])
     return ("<section id='provenance'><h2>Provenance of the runs</h2>"
             + table(header, rows, ["l"] * len(header)) + "</section>")
 
