@@ -296,7 +296,10 @@ def test_compare_updates_an_existing_report_in_place(tmp_path, capsys):
     sweep = make_sweep(tmp_path, seeds=4)
     assert report_main([str(sweep), "--no-figures", "--quiet", *FAST]) == 0
     before = snapshot(sweep / "report")
-    assert before["report.html"].count(b"<h2>Comparison</h2>") == 0
+    page = before["report.html"].decode()
+    # without a candidate the section says how to get one (README, "seedsweep compare")
+    assert page.count("<h2>Comparison</h2>") == 1 and "data-candidate" not in page
+    assert f"seedsweep report {sweep} --candidate NAME" in page
     assert run(compare_main, [sweep, "--candidate", "strong", "--quiet", *FAST], capsys)[0] == 0
     after = snapshot(sweep / "report")
     assert set(after) == set(before) | {"compare.json"}
@@ -304,17 +307,19 @@ def test_compare_updates_an_existing_report_in_place(tmp_path, capsys):
         if name != "report.html":
             assert after[name] == before[name], name  # the rest of the report is untouched
     page = after["report.html"].decode()
-    assert page.count("<h2>Comparison</h2>") == 1 and "Candidate <code>strong</code>" in page
+    assert page.count("<h2>Comparison</h2>") == 1
+    # the verdict block and the Comparison section both name the candidate
+    assert page.count('data-candidate="strong"') == 2
     assert run(compare_main, [sweep, "--candidate", "weak", "--quiet", *FAST], capsys)[0] == 0
     page = (sweep / "report" / "report.html").read_text()
-    assert page.count("<h2>Comparison</h2>") == 1 and "Candidate <code>weak</code>" in page
-    assert "Candidate <code>strong</code>" not in page
+    assert page.count("<h2>Comparison</h2>") == 1 and page.count('data-candidate="weak"') == 2
+    assert 'data-candidate="strong"' not in page
     last = (sweep / "report" / "compare.json").read_text()
 
     # a new report recomputes the recorded comparison: same request, same runs, same file
     assert report_main([str(sweep), "--no-figures", "--quiet", *FAST]) == 0
     assert (sweep / "report" / "compare.json").read_text() == last
-    assert "Candidate <code>weak</code>" in (sweep / "report" / "report.html").read_text()
+    assert 'data-candidate="weak"' in (sweep / "report" / "report.html").read_text()
 
     # report --candidate replaces it; a request that no longer works is kept as it was
     assert report_main([str(sweep), "--no-figures", "--quiet", "--candidate", "twin",

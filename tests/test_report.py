@@ -97,8 +97,8 @@ def test_report_end_to_end(tmp_path, capsys):
     report = sweep / "report"
     for name in ("summary.json", "scores.csv", "curves.csv", "report.html"):
         assert (report / name).is_file()
-    for fig in ("aggregate_intervals", "probability_of_improvement", "performance_profiles",
-                "sample_efficiency", "learning_curves"):
+    for fig in ("agent_scores", "head_to_head", "runs_above_threshold", "score_over_training",
+                "curves_per_env"):
         assert (report / "figures" / f"{fig}.png").read_bytes()[:4] == b"\x89PNG"
         assert b"<svg" in (report / "figures" / f"{fig}.svg").read_bytes()[:2000]
     assert not list(sweep.glob(".report-*"))

@@ -1,153 +1,88 @@
-"""Report figures (matplotlib, Agg backend): each figure as PNG and SVG bytes.
-
-Figures are built on ``matplotlib.figure.Figure`` objects, never pyplot's global state, and
-saved without timestamps so the same report data gives the same files.
+"""The report's figures: their names, what each shows (the page's captions), and saving
+each as PNG and SVG bytes without time stamps, so the same report data gives the same files.
 """
 
 from __future__ import annotations
 
 import io
-import math
+from collections.abc import Callable
 from typing import Any
 
-import matplotlib
-
-matplotlib.use("Agg")
-
-from matplotlib import (
-    colormaps,
-    rc_context,  # noqa: E402
+from matplotlib import rc_context
+from matplotlib.figure import Figure
+from seedsweep.runner.present import text
+from seedsweep.runner.present.curve_figures import (
+    curves_per_env,
+    runs_above_threshold,
+    score_over_training,
 )
-from matplotlib.figure import Figure  # noqa: E402
-from seedsweep.runner.analysis.stats import STATISTICS  # noqa: E402
+from seedsweep.runner.present.figure_parts import RC
+from seedsweep.runner.present.palette import agent_colours
+from seedsweep.runner.present.score_figures import agent_scores, head_to_head
 
-STAT_TITLES = {"iqm": "IQM", "mean": "Mean", "median": "Median",
-               "optimality_gap": "Optimality gap"}
-RC = {"svg.hashsalt": "seedsweep", "font.size": 9, "axes.spines.top": False,
-      "axes.spines.right": False}
+FIGURES: dict[str, Callable[[Any, dict[str, str]], Figure]] = {
+    "agent_scores": agent_scores,
+    "head_to_head": head_to_head,
+    "runs_above_threshold": runs_above_threshold,
+    "score_over_training": score_over_training,
+    "curves_per_env": curves_per_env,
+}
 
 
-def _colors(names: list[str]) -> dict[str, Any]:
-    cmap = colormaps["tab10"]
-    return {n: cmap(i % 10) for i, n in enumerate(names)}
+def captions(data: Any) -> dict[str, str]:
+    """name -> what the figure shows and what every band and bar in it is."""
+    conf = text.ci_label(data.options["confidence"])
+    boot = (f"{data.options['resamples']} stratified bootstrap resamples (each env's runs "
+            "resampled with replacement)")
+    median = text.median_note(len(data.envs))
+    return {
+        "agent_scores": (
+            "Top: one dot per run, its final normalised score (marker shape = env; dots of "
+            "equal score are set side by side, so three seeds show as three dots). Beside "
+            f"them the agent's IQM (thick bar and diamond: the {conf} of the IQM across "
+            f"seeds, {boot}), mean and median of the per-env means (thin bars: their "
+            f"{conf})." + (f" The {median}." if median else "")
+            + " Bottom: each run's shortfall below the reference, max(1 - score, 0), and "
+            f"the optimality gap with its {conf}; lower is better."),
+        "head_to_head": (
+            "Each cell: the probability that a run of the row agent scores higher than a "
+            "run of the column agent on the same env (ties count one half, averaged over "
+            f"envs), with its {conf} ({boot}). Agents are ordered by IQM. Hatched cells: "
+            "the interval includes 0.5, so neither agent is shown to be ahead."),
+        "runs_above_threshold": (
+            "Performance profile per agent: for each normalised score on the x axis, the "
+            "share of the agent's runs scoring above it (per env, averaged over envs). "
+            f"Shaded band: its {conf} ({boot}). Thin grey lines: the other agents. Dots "
+            "under the curve: one per run, at its score."),
+        "score_over_training": (
+            "IQM of the normalised scores of all runs and envs at each evaluation; x axis: "
+            f"{data.efficiency_x}. Shaded band: the {conf} of that IQM ({boot})."),
+        "curves_per_env": (
+            "Per env: the IQM over seeds of the evaluation return at each evaluation; "
+            f"shaded band: its {conf} (the seeds resampled with replacement). Grey line "
+            f"and band: the random agent's score and its {conf} (Student-t over its "
+            "evaluation episodes); dashed: the reference score. Right of each panel: every "
+            "run's score as a dot, one column per agent in the legend's order."),
+    }
 
 
 def _save(fig: Figure) -> tuple[bytes, bytes]:
     png, svg = io.BytesIO(), io.BytesIO()
-    with rc_context(RC):
-        fig.savefig(png, format="png", dpi=110, bbox_inches="tight",
-                    metadata={"Software": None})
-        fig.savefig(svg, format="svg", bbox_inches="tight", metadata={"Date": None})
+    fig.savefig(png, format="png", dpi=110, bbox_inches="tight", metadata={"Software": None})
+    fig.savefig(svg, format="svg", bbox_inches="tight", metadata={"Date": None})
     return png.getvalue(), svg.getvalue()
 
 
-def aggregate_intervals(data: Any, colors: dict) -> Figure:
-    agents = data.agents
-    fig = Figure(figsize=(11, 0.5 + 0.45 * len(agents) + 0.6), layout="constrained")
-    axes = fig.subplots(1, len(STATISTICS), sharey=True)
-    for ax, stat in zip(axes, STATISTICS, strict=True):
-        for i, a in enumerate(agents):
-            iv = data.aggregates[a][stat]
-            ax.plot([iv.low, iv.high], [i, i], color=colors[a], lw=6, alpha=0.6,
-                    solid_capstyle="butt")
-            ax.plot([iv.point], [i], marker="|", color="black", ms=12)
-        ax.set_title(STAT_TITLES[stat])
-        ax.set_yticks(range(len(agents)), agents)
-        ax.grid(axis="x", alpha=0.3)
-        ax.set_ylim(len(agents) - 0.3, -0.7)  # first agent on top
-    fig.supxlabel("normalised score (optimality gap: lower is better)")
-    return fig
-
-
-def improvement(data: Any, colors: dict) -> Figure:
-    pairs = data.improvement
-    fig = Figure(figsize=(6, 0.6 + 0.4 * max(len(pairs), 1)), layout="constrained")
-    ax = fig.subplots()
-    for i, p in enumerate(pairs):
-        ax.plot([p["low"], p["high"]], [i, i], color=colors[p["x"]], lw=6, alpha=0.6,
-                solid_capstyle="butt")
-        ax.plot([p["point"]], [i], marker="|", color="black", ms=12)
-    ax.set_yticks(range(len(pairs)), [f"P({p['x']} > {p['y']})" for p in pairs])
-    ax.axvline(0.5, color="grey", ls="--", lw=1)
-    ax.set_xlim(0, 1)
-    ax.set_ylim(len(pairs) - 0.5, -0.5)
-    ax.set_xlabel("probability of improvement")
-    if not pairs:
-        ax.text(0.5, 0.5, "one agent: no pairs", ha="center", transform=ax.transAxes)
-    return fig
-
-
-def _bands(ax: Any, curves: dict, colors: dict) -> None:
-    for a, c in curves.items():
-        ax.plot(c.x, c.point, color=colors[a], label=a)
-        ax.fill_between(c.x, c.low, c.high, color=colors[a], alpha=0.2, lw=0)
-
-
-def profiles(data: Any, colors: dict) -> Figure:
-    fig = Figure(figsize=(6, 4), layout="constrained")
-    ax = fig.subplots()
-    _bands(ax, data.profiles, colors)
-    ax.set_xlabel("normalised score threshold tau")
-    ax.set_ylabel("fraction of runs with score > tau")
-    ax.set_ylim(-0.02, 1.02)
-    ax.grid(alpha=0.3)
-    ax.legend(frameon=False)
-    return fig
-
-
-def efficiency(data: Any, colors: dict) -> Figure:
-    fig = Figure(figsize=(6, 4), layout="constrained")
-    ax = fig.subplots()
-    _bands(ax, data.efficiency, colors)
-    ax.set_xlabel(data.efficiency_x)
-    ax.set_ylabel("IQM normalised score")
-    ax.grid(alpha=0.3)
-    ax.legend(frameon=False)
-    return fig
-
-
-def learning_curves(data: Any, colors: dict) -> Figure:
-    envs = data.envs
-    cols = min(3, len(envs))
-    rows = math.ceil(len(envs) / cols)
-    fig = Figure(figsize=(4.2 * cols, 3.2 * rows), layout="constrained")
-    axes = fig.subplots(rows, cols, squeeze=False)
-    for k, ax in enumerate(axes.flat):
-        if k >= len(envs):
-            ax.set_visible(False)
-            continue
-        env = envs[k]
-        ref = data.references[env]
-        curves = data.env_curves[env]
-        _bands(ax, curves, colors)
-        x = next(iter(curves.values())).x
-        ax.axhspan(ref.random_low, ref.random_high, color="grey", alpha=0.25, lw=0)
-        ax.axhline(ref.random, color="grey", lw=1, label="random")
-        ax.axhline(ref.reference, color="black", ls="--", lw=1, label=f"reference ({ref.source})")
-        ax.set_xlim(float(x[0]), float(x[-1]) if x[-1] > x[0] else float(x[0]) + 1)
-        ax.set_title(env)
-        ax.set_xlabel("env steps")
-        ax.set_ylabel("IQM return")
-        ax.grid(alpha=0.3)
-        if k == 0:
-            ax.legend(frameon=False, fontsize=7)
-    return fig
-
-
-FIGURES = {
-    "aggregate_intervals": aggregate_intervals,
-    "probability_of_improvement": improvement,
-    "performance_profiles": profiles,
-    "sample_efficiency": efficiency,
-    "learning_curves": learning_curves,
-}
+def colours_of(data: Any) -> dict[str, str]:
+    """The agents' colours for this report (see :mod:`.palette`)."""
+    return agent_colours(data.shown)
 
 
 def all_figures(data: Any) -> dict[str, tuple[bytes, bytes]]:
     """name -> (png, svg) for every report figure."""
-    colors = _colors(data.shown)
+    colours = colours_of(data)
     out = {}
     with rc_context(RC):
         for name, build in FIGURES.items():
-            out[name] = _save(build(data, colors))
+            out[name] = _save(build(data, colours))
     return out

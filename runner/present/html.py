@@ -1,121 +1,217 @@
-"""report.html: one self-contained page (figures embedded as base64 PNG, no external files).
-
-Every string that comes from run folders or the command line (agent, env and run names,
-error messages, provenance) goes through :func:`html.escape`.
+"""report.html: one self-contained page (figures embedded as base64 PNG, no external files),
+the verdict first, then the scores, the pairs, the curves, the per-env numbers and how they
+were made. Readable from 800 px wide up: tables wrap their intervals and scroll inside their
+own box if they must, never the page.
 """
 
 from __future__ import annotations
 
-import base64
-import html
 import json
 from collections import Counter
-from collections.abc import Iterable, Sequence
 from typing import Any
 
-from seedsweep.runner.analysis.stats import STATISTICS
+from seedsweep.runner.present import text
+from seedsweep.runner.present.figures import captions, colours_of
+from seedsweep.runner.present.html_parts import (
+    STYLE,
+    Raw,
+    esc,
+    figure,
+    interval_cell,
+    notes,
+    random_cell,
+    swatch,
+    table,
+)
+from seedsweep.runner.present.palette import agent_colours, is_random
+from seedsweep.runner.present.verdict_html import (
+    COMPARISON_END,
+    COMPARISON_START,
+    VERDICT_END,
+    VERDICT_START,
+    comparison_section,
+    splice,
+    verdict_block,
+)
 
-STYLE = """
-body{font-family:system-ui,sans-serif;margin:2em auto;max-width:1100px;color:#222}
-table{border-collapse:collapse;margin:.5em 0 1.5em}
-th,td{border:1px solid #ccc;padding:.25em .6em;text-align:right;font-size:.9em}
-th{background:#f3f3f3} td.l,th.l{text-align:left}
-img{max-width:100%;border:1px solid #eee;margin:.5em 0}
-.bad{color:#a00} code{background:#f5f5f5;padding:0 .2em}
-"""
-STAT_NAMES = {"iqm": "IQM", "mean": "Mean", "median": "Median",
-              "optimality_gap": "Optimality gap"}
+__all__ = ["COMPARISON_END", "COMPARISON_START", "VERDICT_END", "VERDICT_START", "render",
+           "splice_comparison"]
 
-
-def esc(value: Any) -> str:
-    return html.escape(str(value), quote=True)
-
-
-def _is_number(cell: Any) -> bool:
-    text = str(cell).split(" ")[0]
-    try:
-        float(text)
-    except ValueError:
-        return False
-    return True
-
-
-def _table(header: Sequence[str], rows: Iterable[Sequence[Any]], left: int = 1) -> str:
-    """A table; the first ``left`` columns and every non-numeric cell are left-aligned;
-    every cell is escaped."""
-    rows = [list(r) for r in rows]
-
-    def cls(i: int, cell: Any) -> str:
-        return "l" if i < left or not _is_number(cell) else ""
-
-    head = "".join(f"<th class='{'l' if i < left else ''}'>{esc(h)}</th>"
-                   for i, h in enumerate(header))
-    body = "".join(
-        "<tr>" + "".join(f"<td class='{cls(i, c)}'>{esc(c)}</td>" for i, c in enumerate(row))
-        + "</tr>"
-        for row in rows)
-    return f"<table><tr>{head}</tr>{body}</table>"
-
-
-def _iv(d: dict[str, float]) -> str:
-    return f"{d['point']:.3f} [{d['low']:.3f}, {d['high']:.3f}]"
-
-
-def _figure(figures: dict[str, tuple[bytes, bytes]], name: str, alt: str) -> str:
-    if name not in figures:
-        return "<p><em>figures were not made (--no-figures)</em></p>"
-    data = base64.b64encode(figures[name][0]).decode("ascii")
-    return f"<img alt='{esc(alt)}' src='data:image/png;base64,{data}'>"
+PROVENANCE_KEYS = ("code_version", "git_commit", "git_dirty", "python", "torch", "gymnasium",
+                   "numpy", "cpu", "hostname")
+TOC = (("verdict", "Verdict"), ("scores", "Scores"), ("pairs", "Head to head"),
+       ("comparison", "Comparison"), ("profiles", "Runs above a score"),
+       ("training", "Over training"), ("per-env", "Per env"), ("protocol", "Protocol"),
+       ("left-out", "Runs left out"), ("provenance", "Provenance"))
 
 
 def render(data: Any, summary: dict[str, Any], figures: dict[str, tuple[bytes, bytes]],
            comparison: Any = None) -> str:
-    """The whole page as a string. ``comparison``: a :class:`runner.compare.ReportComparison`
-    or None; its section sits between markers so ``seedsweep compare`` can replace it."""
-    conf = f"{summary['bootstrap']['confidence']:.0%}"
+    """The whole page as a string. ``comparison``: a ReportComparison or None; the verdict
+    block and the Comparison section sit between markers so ``seedsweep compare`` can
+    replace them."""
+    colours = colours_of(data)
+    caps = captions(data)
+    folder = str(data.sweep.path)
+    doc = comparison.doc if comparison is not None else None
+    note = comparison.note if comparison is not None else ""
+    ranking = sorted(((a, data.aggregates[a]["iqm"]) for a in data.agents),
+                     key=lambda item: -item[1].point)
+    left_out = len(data.problems)
+    compared = sum(data.n_runs[a] for a in data.agents)
+    randoms = len(data.runs) - compared
     parts = [
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
+        "<meta name='viewport' content='width=device-width, initial-scale=1'>",
         f"<title>seedsweep report: {esc(data.sweep.name)}</title><style>{STYLE}</style>",
         "</head><body>",
         f"<h1>Sweep <code>{esc(data.sweep.name)}</code></h1>",
-        f"<p>Folder: <code>{esc(data.sweep.path)}</code>. {len(data.agents)} compared agents, "
-        f"{len(data.envs)} envs, {len(data.runs)} complete runs used, "
-        f"<span class='{'bad' if data.problems else ''}'>{len(data.problems)} left out</span>."
-        "</p>",
+        f"<p class='lede'>{len(data.agents)} agents compared on {len(data.envs)} env"
+        f"{'s' if len(data.envs) != 1 else ''}: {compared} runs"
+        + (f" and {randoms} random-agent runs" if randoms else "") + "; "
+        f"<span class='{'bad' if left_out else ''}'>{left_out} left out</span>. Folder "
+        f"<code>{esc(folder)}</code>.</p>",
+        verdict_block(doc, folder, note, ranking, colours),
+        "<nav class='toc'>" + "".join(f"<a href='#{k}'>{esc(v)}</a>" for k, v in TOC)
+        + "</nav>",
+        _scores(data, summary, colours),
+        figure(figures, "agent_scores", "every run's normalised score beside each agent's "
+               "aggregates", caps["agent_scores"]),
+        _pairs(data, summary, colours),
+        figure(figures, "head_to_head", "probability of improvement for each pair of agents",
+               caps["head_to_head"]),
+        comparison_section(doc, folder, note, colours),
+        "<section id='profiles'><h2>Runs above a score (performance profiles)</h2>",
+        figure(figures, "runs_above_threshold", "share of runs above each normalised score",
+               caps["runs_above_threshold"]), "</section>",
+        "<section id='training'><h2>Score over training (sample efficiency)</h2>",
+        figure(figures, "score_over_training", "IQM normalised score at each evaluation",
+               caps["score_over_training"]), "</section>",
+        _per_env(data, summary, colours),
+        figure(figures, "curves_per_env", "per-env returns over training",
+               caps["curves_per_env"]),
         _protocol(data, summary),
-        f"<h2>Aggregate normalised scores ({esc(conf)} intervals)</h2>",
-        _table(["agent", "runs"] + [STAT_NAMES[s] for s in STATISTICS],
-               [[a, summary["agents"][a]["n_runs"]]
-                + [_iv(summary["agents"][a][s]) for s in STATISTICS] for a in data.agents]),
-        _figure(figures, "aggregate_intervals", "aggregate intervals per agent"),
-        "<h2>Probability of improvement</h2>",
-        "<p>P(X &gt; Y): the probability that a run of X on a random env scores higher than a "
-        "run of Y (Mann-Whitney U / (n m) per env, ties count 1/2, averaged over envs).</p>",
-        _table(["X", "Y", "P(X > Y)"],
-               [[p["x"], p["y"], _iv(p)] for p in summary["probability_of_improvement"]], 2),
-        _figure(figures, "probability_of_improvement", "probability of improvement"),
-        comparison_section(comparison.doc, comparison.note) if comparison is not None
-        else comparison_section(None),
-        "<h2>Performance profiles</h2>",
-        _figure(figures, "performance_profiles", "performance profiles"),
-        "<h2>Sample efficiency</h2>",
-        f"<p>IQM of normalised scores over all runs and envs at each evaluation; x axis: "
-        f"{esc(data.efficiency_x)}.</p>",
-        _figure(figures, "sample_efficiency", "sample-efficiency curves"),
-        "<h2>References per env</h2>",
-        _references(data),
-        "<h2>Per-env raw scores (IQM over seeds)</h2>",
-        _per_env(data, summary),
-        _figure(figures, "learning_curves", "per-env learning curves"),
-        "<h2>Runs left out</h2>",
         _problems(data),
-        "<h2>Provenance of the runs</h2>",
         _provenance(data),
-        "<h2>Timing</h2>",
-        _table(["step", "seconds"], sorted(data.timing.items())),
+        "<section id='timing'><h2>Timing</h2>",
+        table(["step", "value"], text.timing_rows(data.timing)), "</section>",
         "</body></html>",
     ]
     return "\n".join(parts) + "\n"
+
+
+def _scores(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str:
+    conf = text.ci_label(data.options["confidence"])
+    shown = text.shown_statistics(len(data.envs))
+    agents = summary["agents"]
+    tuned = any("tuning" in agents[a] for a in data.agents)
+    header = ["agent", "runs"] + (["tuning"] if tuned else [])
+    header += [f"{text.STAT_LABELS[s]} ({conf})" if s != "optimality_gap"
+               else f"optimality gap, lower is better ({conf})" for s in shown]
+    rows, flags = [], []
+    for a in data.agents:
+        row: list[Any] = [swatch(a, colours), agents[a]["n_runs"]]
+        if tuned:
+            row.append(text.tuning_line(agents[a].get("tuning")))
+        for s in shown:
+            iv = data.aggregates[a][s]
+            flag = ""
+            if text.zero_width(iv):
+                flag = text.no_spread_note(data.n_runs[a], len(data.envs))
+                flags.append(f"{a}, {text.STAT_LABELS[s]}: {flag}")
+            row.append(interval_cell(iv, flag=flag))
+        rows.append(row)
+    seeds = min((len(s) for a in data.agents for s in _cells(data, a)), default=0)
+    return "\n".join([
+        "<section id='scores'><h2>Scores</h2>",
+        f"<p>{esc(text.SCALE_NOTE)}. IQM: mean of the middle half of all runs pooled over "
+        f"envs; mean and median: of the per-env mean scores. {esc(conf)}: stratified "
+        f"bootstrap interval over seeds ({data.options['resamples']} resamples).</p>",
+        table(header, rows),
+        notes([text.median_note(len(data.envs)), text.GAP_NOTE + ".", *flags,
+               text.coverage_line(seeds, len(data.envs))]),
+        "</section>",
+    ])
+
+
+def _cells(data: Any, agent: str) -> list[list[str]]:
+    by_env: dict[str, list[str]] = {}
+    for r in data.runs:
+        if r.label == agent:
+            by_env.setdefault(r.env_key, []).append(r.run_id)
+    return list(by_env.values())
+
+
+def _pairs(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str:
+    """Each pair once, in the head-to-head figure's order (agents by IQM, best first)."""
+    conf = text.ci_label(data.options["confidence"])
+    order = sorted(data.agents, key=lambda a: -data.aggregates[a]["iqm"].point)
+    pairs = {(p["x"], p["y"]): p for p in summary["probability_of_improvement"]}
+    rows = []
+    for i, x in enumerate(order):
+        for y in order[i + 1:]:
+            p = pairs[(x, y)]
+            if p["low"] > 0.5:
+                reading = f"{x} ahead"
+            elif p["high"] < 0.5:
+                reading = f"{y} ahead"
+            else:
+                reading = "no clear winner (interval includes 0.5)"
+            rows.append([swatch(x, colours), swatch(y, colours), interval_cell(p), reading])
+    body = (table(["agent X", "agent Y", f"P(X > Y), {conf}", "reading"], rows) if rows
+            else "<p>One agent: no pair to compare.</p>")
+    if any(text.zero_width(p) for p in summary["probability_of_improvement"]):
+        body += notes([f"no spread: {text.ZERO_WIDTH_NOTE}."])
+    return "\n".join([
+        "<section id='pairs'><h2>Head to head (probability of improvement)</h2>",
+        "<p>P(X &gt; Y): the probability that a run of X scores higher than a run of Y on "
+        "the same env (Mann-Whitney U / (n m) per env, ties count 1/2, averaged over envs); "
+        "0.5 means no difference. Each pair once; P(Y &gt; X) = 1 - P(X &gt; Y).</p>",
+        body, "</section>",
+    ])
+
+
+def _per_env(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str:
+    conf = text.ci_label(data.options["confidence"])
+    ref_rows, details = [], []
+    for e in data.envs:
+        r = data.references[e]
+        ref_rows.append([e, random_cell(r), f"{r.reference:.6g}",
+                         text.SOURCES.get(r.source, r.source)])
+        src = (f"{len(r.random_runs)} random runs in the sweep" if r.random_source == "sweep"
+               else "measured once into results/_reference_cache/")
+        details.append(f"{e} (config {r.env_config}): random from {src}, {r.random_episodes} "
+                       f"episodes; reference: {r.detail}." + (f" {r.random_note}."
+                                                               if r.random_note else ""))
+    rows, flat = [], []
+    for a in data.shown:
+        cells = summary["per_env"].get(a, {})
+        row: list[Any] = [swatch(a, colours)]
+        for e in data.envs:
+            if is_random(a):
+                row.append(random_cell(data.references[e]))
+            elif e in cells:
+                n = cells[e]["n_seeds"]
+                flag = text.no_spread_note(n, 1) if text.zero_width(cells[e]) else ""
+                if flag:
+                    flat.append(f"{a} on {e}: {flag}")
+                row.append(interval_cell(cells[e], raw=True, n=n, flag=flag))
+            else:
+                row.append("-")
+        rows.append(row)
+    return "\n".join([
+        "<section id='per-env'><h2>Per env</h2>",
+        f"<h3>Random and reference scores ({esc(conf)})</h3>",
+        table(["env", f"random ({conf})", "reference", "reference from"], ref_rows),
+        notes(details),
+        f"<h3>Raw scores: IQM over seeds, {esc(conf)} (seeds)</h3>",
+        table(["agent", *data.envs], rows),
+        notes(flat),
+        notes(["random: the mean return over the random agent's evaluation episodes with its "
+               f"Student-t {conf}, the same number every normalised score is measured from."]
+              if any(is_random(a) for a in data.shown) else []),
+        "</section>",
+    ])
 
 
 def _protocol(data: Any, summary: dict[str, Any]) -> str:
@@ -142,108 +238,43 @@ def _protocol(data: Any, summary: dict[str, Any]) -> str:
     for env, ev in data.eval_settings.items():
         rows.append([f"evaluation on {env}", f"{ev['episodes']} episodes per evaluation, "
                      f"deterministic={str(ev['deterministic']).lower()}"])
-    return "<h2>Protocol</h2>" + _table(["setting", "value"], rows, 2)
-
-
-def _references(data: Any) -> str:
-    rows = []
-    for e in data.envs:
-        r = data.references[e]
-        rows.append([e, r.env_config, f"{r.random:.4g}", f"[{r.random_low:.4g}, "
-                     f"{r.random_high:.4g}]", r.random_episodes,
-                     "sweep runs" if r.random_source == "sweep" else "measured (cache)",
-                     f"{r.reference:.6g}", r.source, r.detail, r.random_note])
-    return _table(["env", "config", "random", "random CI", "episodes", "random from",
-                   "reference", "source", "how", "note"], rows, 2)
-
-
-def _per_env(data: Any, summary: dict[str, Any]) -> str:
-    header = ["agent"] + [f"{e} (seeds)" for e in data.envs]
-    rows = []
-    for a in data.shown:
-        cells = summary["per_env"].get(a, {})
-        rows.append([a] + [f"{_iv(cells[e])} ({cells[e]['n_seeds']})" if e in cells else "-"
-                           for e in data.envs])
-    return _table(header, rows)
+    rows = [[Raw(f'<span class="nm">{esc(k)}</span>'), v] for k, v in rows]
+    return ("<section id='protocol'><h2>Protocol</h2>" + table(["setting", "value"], rows,
+                                                              ["l", "l"]) + "</section>")
 
 
 def _problems(data: Any) -> str:
+    head = "<section id='left-out'><h2>Runs left out</h2>"
     if not data.problems:
-        return "<p>None: every run folder is complete and used.</p>"
+        return head + "<p>None: every run folder is complete and used.</p></section>"
     rows = [[p.status, p.run_id, p.agent, p.env, p.seed, p.reason] for p in data.problems]
-    return _table(["status", "run", "agent", "env", "seed", "reason"], rows, 6)
+    return head + table(["status", "run", "agent", "env", "seed", "reason"], rows,
+                        ["l", "l", "l", "l", "r", "l"]) + "</section>"
 
 
 def _provenance(data: Any) -> str:
+    """One column per distinct provenance (usually one), one row per field."""
     groups: Counter[str] = Counter()
     for r in data.runs:
         groups[json.dumps(r.record.get("provenance") or {}, sort_keys=True)] += 1
-    keys = ["git_commit", "git_dirty", "python", "torch", "gymnasium", "numpy", "cpu",
-            "hostname"]
+    provs = [(json.loads(blob), n) for blob, n in groups.most_common()]
+    header = ["field"] + [f"{n} run{'s' if n != 1 else ''}" for _, n in provs]
     rows = []
-    for blob, n in groups.most_common():
-        prov = json.loads(blob)
-        rows.append([n] + [prov.get(k, "") for k in keys])
-    return _table(["runs"] + keys, rows, 9)
+    for k in PROVENANCE_KEYS:
+        values = [Raw(f"<code>{esc(p.get(k, ''))}</code>") if k.endswith(("version", "commit"))
+                  else p.get(k, "") for p, _ in provs]
+        rows.append([Raw(f'<span class="nm">{esc(k)}</span>'), *values])
+    return ("<section id='provenance'><h2>Provenance of the runs</h2>"
+            + table(header, rows, ["l"] * len(header)) + "</section>")
 
 
-# -- the Comparison section (written by the report, replaced by ``seedsweep compare``) -------
-
-COMPARISON_START = "<!-- seedsweep:comparison:start -->"
-COMPARISON_END = "<!-- seedsweep:comparison:end -->"
-
-
-def comparison_section(doc: dict[str, Any] | None, note: str = "") -> str:
-    """The Comparison section between its markers (only the markers when there is none)."""
-    if doc is None and not note:
-        return COMPARISON_START + COMPARISON_END
-    parts = [COMPARISON_START, "<h2>Comparison</h2>"]
-    if note:
-        parts.append(f"<p class='bad'>{esc(note)}</p>")
-    if doc is not None:
-        parts.append(_comparison_body(doc))
-    parts.append(COMPARISON_END)
-    return "\n".join(parts)
-
-
-def _comparison_body(doc: dict[str, Any]) -> str:
-    b = doc["bootstrap"]
-    cand = doc["candidate"]
-    rows = [[c["baseline"], _iv(c["iqm_difference"]), _iv(c["probability_of_improvement"]),
-             c["verdict"], c["reason"]] for c in doc["comparisons"]]
-    env_rows = []
-    for c in doc["comparisons"]:
-        for env, cell in c["per_env"].items():
-            x, y = cell["raw_iqm"]["candidate"], cell["raw_iqm"]["baseline"]
-            env_rows.append([env, c["baseline"], f"{_raw(x)} ({x['n_seeds']})",
-                             f"{_raw(y)} ({y['n_seeds']})",
-                             _iv(cell["probability_of_improvement"])])
-    return "\n".join([
-        f"<p>Candidate <code>{esc(cand)}</code> against {len(doc['comparisons'])} baseline(s) "
-        f"on {len(doc['envs'])} env(s); {esc(b['confidence'])} stratified bootstrap intervals "
-        f"({esc(b['resamples'])} resamples, seed {esc(b['seed'])}). IQM difference: IQM of "
-        "normalised scores pooled over envs, candidate minus baseline. From "
-        "<code>report/compare.json</code>.</p>",
-        f"<p>Verdict rule: {esc(doc['verdict_rule'])}</p>",
-        _table(["baseline", "IQM difference", f"P({cand} > baseline)", "verdict", "why"],
-               rows, 1),
-        "<h3>Per env: IQM of raw scores over seeds (seeds)</h3>",
-        _table(["env", "baseline", cand, "baseline score", f"P({cand} > baseline)"],
-               env_rows, 2),
-    ])
-
-
-def _raw(d: dict[str, float]) -> str:
-    return f"{d['point']:.4g} [{d['low']:.4g}, {d['high']:.4g}]"
-
-
-def splice_comparison(page: str, section: str) -> str:
-    """``page`` with its Comparison section replaced by ``section`` (inserted before
-    ``</body>`` in a page made before the section existed)."""
-    start, end = page.find(COMPARISON_START), page.find(COMPARISON_END)
-    if start != -1 and end > start:
-        return page[:start] + section + page[end + len(COMPARISON_END):]
-    at = page.rfind("</body>")
-    if at == -1:
-        return page + section + "\n"
-    return page[:at] + section + "\n" + page[at:]
+def splice_comparison(page: str, doc: dict[str, Any], folder: str,
+                      labels: list[str]) -> str:
+    """``page`` with its verdict block and Comparison section made from ``doc``;
+    ``labels``: the agents the page's figures were coloured for (its summary's
+    ``shown_agents``), so the swatches keep the figures' colours."""
+    colours = agent_colours([*labels, doc["candidate"], *doc["baselines"]])
+    page = splice(page, VERDICT_START, VERDICT_END,
+                  verdict_block(doc, folder, colours=colours))
+    return splice(page, COMPARISON_START, COMPARISON_END,
+                  comparison_section(doc, folder, colours=colours), after="</nav>")

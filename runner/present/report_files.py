@@ -103,6 +103,9 @@ def write_report(data: ReportData, with_figures: bool = True, comparison: Any = 
                 atomic_write_bytes(tmp / "figures" / f"{name}.png", png)
                 atomic_write_bytes(tmp / "figures" / f"{name}.svg", svg)
         summary = summary_dict(data)
+        if figures:
+            summary["figures"] = {name: f"figures/{name}.png (and .svg): {caption}"
+                                  for name, caption in figs.captions(data).items()}
         atomic_write_text(tmp / "summary.json",
                           json.dumps(summary, indent=2, default=json_default) + "\n")
         atomic_write_text(tmp / "scores.csv", scores_csv(data))
@@ -139,9 +142,18 @@ def write_comparison(doc: dict[str, Any], sweep_dir: Path) -> Path:
     atomic_write_text(target, dumps(doc))
     page = folder / "report.html"
     if page.is_file():
-        section = html.comparison_section(doc)
-        atomic_write_text(page, html.splice_comparison(page.read_text(), section))
+        atomic_write_text(page, html.splice_comparison(page.read_text(), doc, str(sweep_dir),
+                                                       _shown_agents(folder)))
     return target
+
+
+def _shown_agents(folder: Path) -> list[str]:
+    """The agents the existing page was coloured for (its summary.json), or none."""
+    try:
+        shown = json.loads((folder / "summary.json").read_text()).get("shown_agents")
+    except (OSError, ValueError, AttributeError):
+        return []
+    return [str(a) for a in shown] if isinstance(shown, list) else []
 
 
 
