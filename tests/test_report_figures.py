@@ -102,11 +102,12 @@ def test_an_agent_keeps_its_colour_whatever_else_is_in_the_report(tmp_path):
 def test_colours_ignore_order_keep_random_grey_and_never_clash():
     names = ["dqn", "reinforce", "actor_critic", "ppo", "tile_sarsa", "random", "mine",
              "dqn[lr=0.01]", "random[gamma=0.9]"]
-    base = palette.agent_colours(names)
-    assert palette.agent_colours(list(reversed(names))) == base
-    assert palette.agent_colours(sorted(names)) == base
+    floor = {"random", "random[gamma=0.9]"}  # the labels of the random floor's runs
+    base = palette.agent_colours(names, floor)
+    assert palette.agent_colours(list(reversed(names)), floor) == base
+    assert palette.agent_colours(sorted(names), floor) == base
     assert base["random"] == base["random[gamma=0.9]"] == palette.RANDOM_GREY
-    others = [c for n, c in base.items() if not palette.is_random(n)]
+    others = [c for n, c in base.items() if not palette.is_random(n, floor)]
     assert len(set(others)) == len(others)  # 7 agents, 8 colours: no two alike
 
 

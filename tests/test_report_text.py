@@ -197,7 +197,7 @@ def test_old_page_without_a_verdict_block_gets_one(tmp_path):
            "comparisons": [], "verdict_rule": "rule", "alpha": 0.05,
            "bootstrap": {"confidence": 0.95, "resamples": 10, "seed": 0}}
     page = "<html><body><h1>x</h1></body></html>"
-    spliced = html.splice_comparison(page, doc, "results/x", [])
+    spliced = html.splice_comparison(page, doc, "results/x", [], [])
     assert spliced.index(html.VERDICT_START) < spliced.index("<h1>")
     assert spliced.count('data-candidate="alpha"') == 2
 

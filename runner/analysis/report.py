@@ -60,6 +60,7 @@ class ReportData:
     env_curves: dict[str, dict[str, Curve]]
     problems: list[Problem]
     eval_settings: dict[str, dict[str, Any]]
+    floor_labels: frozenset[str] = frozenset()  # shown labels of the random floor's runs
     timing: dict[str, float] = field(default_factory=dict)
 
 
@@ -128,6 +129,7 @@ def compute_report(opts: argparse.Namespace) -> ReportData:
         improvement=improvement, profiles=profiles, efficiency=efficiency,
         efficiency_x=x_label, per_env=per_env, env_curves=env_curves, problems=problems,
         eval_settings=eval_settings,
+        floor_labels=frozenset(r.label for r in used if r.is_floor),
         timing={"aggregates_s": round(t1 - t0, 3), "sample_efficiency_s": round(t2 - t1, 3),
                 "per_env_s": round(t3 - t2, 3), "n_scores": len(used)},
     )

@@ -75,7 +75,7 @@ def _save(fig: Figure) -> tuple[bytes, bytes]:
 
 def colours_of(data: Any) -> dict[str, str]:
     """The agents' colours for this report (see :mod:`.palette`)."""
-    return agent_colours(data.shown)
+    return agent_colours(data.shown, data.floor_labels)
 
 
 def all_figures(data: Any) -> dict[str, tuple[bytes, bytes]]:

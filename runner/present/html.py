@@ -188,7 +188,7 @@ def _per_env(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str
         cells = summary["per_env"].get(a, {})
         row: list[Any] = [swatch(a, colours)]
         for e in data.envs:
-            if is_random(a):
+            if is_random(a, data.floor_labels):
                 row.append(random_cell(data.references[e]))
             elif e in cells:
                 n = cells[e]["n_seeds"]
@@ -209,7 +209,7 @@ def _per_env(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str
         notes(flat),
         notes(["random: the mean return over the random agent's evaluation episodes with its "
                f"Student-t {conf}, the same number every normalised score is measured from."]
-              if any(is_random(a) for a in data.shown) else []),
+              if any(is_random(a, data.floor_labels) for a in data.shown) else []),
         "</section>",
     ])
 
@@ -269,11 +269,11 @@ def _provenance(data: Any) -> str:
 
 
 def splice_comparison(page: str, doc: dict[str, Any], folder: str,
-                      labels: list[str]) -> str:
+                      labels: list[str], floor: list[str]) -> str:
     """``page`` with its verdict block and Comparison section made from ``doc``;
     ``labels``: the agents the page's figures were coloured for (its summary's
-    ``shown_agents``), so the swatches keep the figures' colours."""
-    colours = agent_colours([*labels, doc["candidate"], *doc["baselines"]])
+    ``shown_agents``, ``floor_agents``), so the swatches keep the figures' colours."""
+    colours = agent_colours([*labels, doc["candidate"], *doc["baselines"]], floor)
     page = splice(page, VERDICT_START, VERDICT_END,
                   verdict_block(doc, folder, colours=colours))
     return splice(page, COMPARISON_START, COMPARISON_END,

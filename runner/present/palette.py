@@ -18,9 +18,7 @@ data; grey is kept for the random agent.
 from __future__ import annotations
 
 import hashlib
-from collections.abc import Iterable
-
-from seedsweep.runner.analysis.runs import RANDOM_AGENT
+from collections.abc import Collection, Iterable
 
 PALETTE = (  # ordered so that neighbours differ (a clash moves a name to the next slot)
     "#332288",  # indigo
@@ -36,30 +34,31 @@ RANDOM_GREY = "#8C8C8C"
 REFERENCE_INK = "#222222"  # the reference level: near-black, dashed
 
 
-def is_random(label: str) -> bool:
-    """The random agent, with or without hyperparameters in its label (``random[...]``)."""
-    return label.split("[", 1)[0] == RANDOM_AGENT
+def is_random(label: str, floor: Collection[str]) -> bool:
+    """The random floor: one of ``floor``, the labels of the report's runs of the uniform
+    random agent (marked by its class, never guessed from a name)."""
+    return label in floor
 
 
 def _digest(label: str) -> int:
     return int.from_bytes(hashlib.sha256(label.encode("utf-8")).digest()[:8], "big")
 
 
-def preferred_colour(label: str) -> str:
+def preferred_colour(label: str, floor: Collection[str] = ()) -> str:
     """The colour ``label`` gets when no other agent of the report wants the same one."""
-    if is_random(label):
+    if is_random(label, floor):
         return RANDOM_GREY
     return PALETTE[_digest(label) % len(PALETTE)]
 
 
-def agent_colours(labels: Iterable[str]) -> dict[str, str]:
+def agent_colours(labels: Iterable[str], floor: Collection[str] = ()) -> dict[str, str]:
     """label -> colour for the agents of one report. The result does not depend on the order
     of ``labels``; colours repeat only beyond len(PALETTE) agents."""
     names = sorted(set(labels), key=lambda n: (_digest(n), n))
     out: dict[str, str] = {}
     taken: set[int] = set()
     for name in names:
-        if is_random(name):
+        if is_random(name, floor):
             out[name] = RANDOM_GREY
             continue
         slot = _digest(name) % len(PALETTE)

@@ -62,6 +62,7 @@ def summary_dict(data: ReportData) -> dict[str, Any]:
                     for a, envs in data.per_env.items()},
         "sample_efficiency_x": data.efficiency_x,
         "shown_agents": data.shown,
+        "floor_agents": sorted(data.floor_labels),
         "excluded_runs": [vars(p) for p in data.problems],
         "timing": data.timing,
     }
@@ -143,17 +144,20 @@ def write_comparison(doc: dict[str, Any], sweep_dir: Path) -> Path:
     page = folder / "report.html"
     if page.is_file():
         atomic_write_text(page, html.splice_comparison(page.read_text(), doc, str(sweep_dir),
-                                                       _shown_agents(folder)))
+                                                       *_shown_agents(folder)))
     return target
 
 
-def _shown_agents(folder: Path) -> list[str]:
-    """The agents the existing page was coloured for (its summary.json), or none."""
+def _shown_agents(folder: Path) -> tuple[list[str], list[str]]:
+    """The agents the existing page was coloured for and its random floor (its
+    summary.json), or none."""
     try:
-        shown = json.loads((folder / "summary.json").read_text()).get("shown_agents")
+        summary = json.loads((folder / "summary.json").read_text())
+        shown, floor = summary.get("shown_agents"), summary.get("floor_agents")
     except (OSError, ValueError, AttributeError):
-        return []
-    return [str(a) for a in shown] if isinstance(shown, list) else []
+        return [], []
+    return ([str(a) for a in shown] if isinstance(shown, list) else [],
+            [str(a) for a in floor] if isinstance(floor, list) else [])
 
 
 
