@@ -118,6 +118,15 @@ class Agent(abc.ABC):
         """Whether this agent can act in ``action_space``."""
         return isinstance(action_space, cls.action_spaces)
 
+    @classmethod
+    def memory_bytes(cls, config: Any, observation_space: spaces.Space,
+                     action_space: spaces.Space) -> dict[str, int]:
+        """The most memory an instance will hold, in bytes, keyed by the Config field that
+        sets each amount (``{"replay_capacity": ...}``). Called before the run starts, so a
+        setting that cannot fit is refused naming that field instead of failing later.
+        Optional; the default counts nothing."""
+        return {}
+
     @property
     def gamma(self) -> float:
         return float(self.config.gamma)

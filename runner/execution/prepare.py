@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import importlib
 import importlib.util
+import logging
 import sys
 from dataclasses import dataclass
 from pathlib import Path
@@ -16,12 +17,16 @@ from typing import Any
 
 from seedsweep.agents.base import Agent, build_config
 from seedsweep.configs.checks import ConfigError
+from seedsweep.configs.memory import available_bytes, check_fits, human
 from seedsweep.envs.build import EnvSpec, make_eval_env, parse_env_config
 from seedsweep.runner.execution import records
 from seedsweep.runner.execution.config import check_run_config
 from seedsweep.runner.execution.seeding import RunSeeds, derive_seeds
 
+logger = logging.getLogger(__name__)
+
 AGENT_METHODS = ("act", "observe", "state_dict", "load_state_dict", "Config", "supports")
+RECORD_BYTES = 400  # one evaluation episode's record in memory (a dataclass of six numbers)
 
 
 @dataclass
@@ -117,9 +122,37 @@ def prepare(cfg: dict[str, Any]) -> PreparedRun:
             raise ConfigError(
                 "agent", f"{name} does not support {env.id}'s action space {probe.action_space} "
                 f"(supports: {allowed})")
+        check_memory(cfg, env, agent_cls, agent_config, probe.observation_space,
+                     probe.action_space, num_envs)
     finally:
         probe.close()
     seeds = derive_seeds(cfg["seed"], cfg["eval"]["episodes"], num_envs)
     rid = records.run_id(cfg)
     run_dir = Path(cfg["results_dir"]) / cfg["sweep"] / rid
     return PreparedRun(cfg, env, agent_cls, agent_config, seeds, rid, run_dir)
+
+
+def check_memory(cfg: dict[str, Any], env: EnvSpec, agent_cls: type[Agent], agent_config: Any,
+                 obs_space: Any, action_space: Any, num_envs: int) -> None:
+    """Refuse a run whose estimated memory exceeds what is available, naming the field
+    that asks for the most: the agent's own estimate (held, plus one serialised copy in a
+    checkpoint), the envs' observation buffers, and the evaluation records kept in memory."""
+    try:
+        agent = dict(agent_cls.memory_bytes(agent_config, obs_space, action_space) or {})
+    except Exception as err:  # an estimate is advice: a broken hook must not stop the run
+        logger.debug("memory_bytes of %s failed: %s", agent_cls.__name__, err)
+        agent = {}
+    parts = {f"agent.{k}": 2 * int(v) for k, v in agent.items()}
+    parts["env"] = (num_envs + 1) * env.instance_bytes
+    evaluations = cfg["steps"] // cfg["eval"]["every"] + 1
+    episodes = cfg["eval"]["episodes"]
+    parts["eval.every" if evaluations >= episodes else "eval.episodes"] = (
+        evaluations * episodes * RECORD_BYTES)
+    total = sum(parts.values())
+    have = available_bytes()
+    if have is None or total <= have:
+        return
+    field = max(parts, key=lambda k: parts[k])
+    detail = ", ".join(f"{k} {human(v)}" for k, v in sorted(parts.items(), key=lambda kv: -kv[1])
+                       if v)
+    check_fits(field, total, f"the run ({detail})", have)

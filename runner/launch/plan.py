@@ -89,16 +89,17 @@ def plan(overrides: Sequence[str], multirun: bool = False,
 
 def check_plan(planned: list[PreparedRun]) -> list[PreparedRun]:
     """One folder, no run twice; returns the runs in seed-major order."""
+    for key in ("results_dir", "sweep"):  # first: runs in two folders share run ids
+        values = sorted({str(p.config[key]) for p in planned})
+        if len(values) > 1:
+            raise ConfigError(key, f"one sweep writes to one folder; give one value, not "
+                              f"{', '.join(values)}")
     seen: set[str] = set()
     for p in planned:
         if p.run_id in seen:
             raise ConfigError("seed", f"two sweep points give the same run ({p.run_id}); "
                               "remove duplicate values")
         seen.add(p.run_id)
-    sweep_dirs = {p.run_dir.parent for p in planned}
-    if len(sweep_dirs) > 1:
-        raise ConfigError("sweep", "one sweep writes to one folder; do not sweep over sweep= "
-                          "or results_dir=")
     return interleave(planned)
 
 
