@@ -21,7 +21,7 @@ import yaml
 from hydra import compose as hydra_compose
 from hydra import initialize_config_dir
 from hydra.core.override_parser.overrides_parser import OverridesParser
-from hydra.errors import HydraException, OverrideParseException
+from hydra.errors import HydraException
 from omegaconf import OmegaConf
 from omegaconf.errors import OmegaConfBaseException
 from seedsweep.configs.checks import ConfigError, check_type, suggest, unknown_key

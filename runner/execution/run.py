@@ -49,7 +49,8 @@ def _run_json(p: PreparedRun, status: str, started: str, **extra: Any) -> dict[s
         "steps": p.config["steps"],
         "eval": dict(p.config["eval"]),
         "seeds": p.seeds.as_dict(),
-        "provenance": records.provenance(),
+        "provenance": {**records.provenance(), "agent_code_version": p.agent_code_version,
+                       "agent_code": dict(p.agent_code)},
     }
     doc.update(extra)
     return doc
