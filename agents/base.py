@@ -64,8 +64,11 @@ class Step:
 
     ``next_obs`` is the true successor observation: where an episode ended this step it is
     the final observation of that episode (not the reset observation), so an agent can
-    bootstrap from it on truncation. The arrays belong to the runner: read them, copy what
-    you keep, never write into them (some are shared and read-only).
+    bootstrap from it on truncation. The arrays belong to the runner and are read-only
+    (``obs`` is the very array ``act`` was given): read them, copy what you keep or change
+    (``x = step.next_obs.copy()``); writing into one raises ``ValueError: assignment
+    destination is read-only``, which ``seedsweep check-agent`` reports as an in-place
+    write at your line.
     """
 
     obs: np.ndarray  # (num_envs, *obs_shape)
@@ -134,7 +137,10 @@ class Agent(abc.ABC):
     @abc.abstractmethod
     def act(self, obs: np.ndarray, explore: bool) -> np.ndarray:
         """Actions for a batch of observations. ``explore=False`` asks for the
-        deterministic policy (argmax / mean) used by evaluation by default."""
+        deterministic policy (argmax / mean) used by evaluation by default.
+
+        ``obs`` is read-only (in training it is later passed back as ``Step.obs``): copy it
+        before changing it (``x = obs - mean`` makes a new array; ``obs -= mean`` raises)."""
 
     @abc.abstractmethod
     def observe(self, step: Step) -> dict[str, float]:
