@@ -79,6 +79,8 @@ def apply_suite(overrides: Sequence[str], extra_dirs: Sequence[Path] = ()) -> li
 def plan(overrides: Sequence[str], multirun: bool = False,
          extra_dirs: Sequence[Path] = ()) -> list[PreparedRun]:
     """Expand and check every run of a sweep; raises ConfigError before anything is written."""
+    if not multirun and any(o.split("=", 1)[0] == "suite" for o in overrides):
+        raise ConfigError("suite", "a suite is a sweep over its envs: add -m")
     combos = [c for group in apply_suite(overrides, extra_dirs) for c in expand(group, multirun)]
     if not combos:
         raise ConfigError("overrides", "the sweep is empty")
