@@ -192,6 +192,9 @@ class TrainEnvs:
 
     def load_state_dict(self, state: dict[str, Any]) -> np.ndarray:
         """Restore the envs; returns the observation to act on next."""
+        if state.get("kind") not in ("state", "reset"):
+            raise RuntimeError(f"env state of kind {state.get('kind')!r} cannot be restored "
+                               "(only 'state' and 'reset'; pickled envs are never loaded)")
         self._returns[:] = state["returns"].numpy()
         self._lengths[:] = state["lengths"].numpy()
         self._return1, self._length1 = float(self._returns[0]), int(self._lengths[0])

@@ -48,24 +48,32 @@ class UnusableCheckpoint(ValueError):
     """A checkpoint that must not be continued from; the message is one line."""
 
 
+BINDING_KEYS = ("format", "run")  # beside the state's own keys (agent, envs, loop, ...)
+
+
 def to_bytes(binding: Binding, state: dict[str, Any]) -> bytes:
-    """A checkpoint file's bytes: the run's binding and its state."""
+    """A checkpoint file's bytes: the state's keys (``agent``, ``envs``, ``loop``,
+    ``global_rngs``) with the format and the run's binding beside them."""
     buf = io.BytesIO()
-    torch.save({"format": FORMAT, "run": binding.as_dict(), "state": state}, buf)
+    torch.save({"format": FORMAT, "run": binding.as_dict(), **state}, buf)
     return buf.getvalue()
 
 
 def from_bytes(data: bytes, binding: Binding) -> dict[str, Any]:
     """The state in a checkpoint of this run; UnusableCheckpoint (one line) otherwise."""
-    with warnings.catch_warnings(record=True) as caught:
+    error: Exception | None = None
+    with warnings.catch_warnings(record=True) as caught:  # torch's warnings span lines
         warnings.simplefilter("always")
         try:
             doc = torch.load(io.BytesIO(data), weights_only=True)
         except Exception as err:  # torch raises assorted types on damaged or foreign files
-            raise UnusableCheckpoint(f"does not load ({_first_line(err)})") from None
-    if caught:  # e.g. "Detected pickle protocol 253 ...": a damaged header that still loads
-        raise UnusableCheckpoint(f"torch warned while loading it "
-                                 f"({_first_sentence(str(caught[0].message))})")
+            error = err
+    warned = _first_sentence(str(caught[0].message)) if caught else ""
+    if error is not None:
+        raise UnusableCheckpoint(f"does not load ({_first_line(error)}"
+                                 + (f"; torch warned: {warned})" if warned else ")"))
+    if warned:  # e.g. "Detected pickle protocol 253 ...": a damaged header that still loads
+        raise UnusableCheckpoint(f"torch warned while loading it ({warned})")
     if not isinstance(doc, dict) or doc.get("format") != FORMAT:
         found = doc.get("format") if isinstance(doc, dict) else type(doc).__name__
         raise UnusableCheckpoint(f"not a checkpoint of format {FORMAT} (found {found!r})")
@@ -77,8 +85,8 @@ def from_bytes(data: bytes, binding: Binding) -> dict[str, Any]:
         raise UnusableCheckpoint(f"was made with another config (config digest "
                                  f"{str(run.get('config_digest'))[:12]}..., this run's is "
                                  f"{binding.config_digest[:12]}...)")
-    state = doc.get("state")
-    if not isinstance(state, dict):
+    state = {k: v for k, v in doc.items() if k not in BINDING_KEYS}
+    if not state:
         raise UnusableCheckpoint("holds no state")
     return state
 
