@@ -29,13 +29,14 @@ import numpy as np
 import pytest
 import torch
 from filelock import FileLock
+from seedsweep.configs.checks import ConfigError
 from seedsweep.envs import snapshot
 from seedsweep.runner.commands.main import main
 from seedsweep.runner.execution import checkpoints, records
 from seedsweep.runner.execution.config import compose
 from seedsweep.runner.execution.prepare import prepare
 from seedsweep.runner.execution.run import binding, execute
-from seedsweep.runner.launch import status, sweep
+from seedsweep.runner.launch import slurm, status, sweep
 
 from tests.test_compare import make_sweep
 
@@ -306,3 +307,18 @@ def test_report_and_compare_treat_a_mismatched_random_run_alike(tmp_path, capsys
             for runs in (reported, compared)]
     assert mine[0] == mine[1] and len(mine[0]) == 1
     assert "evaluation settings differ" in mine[0][0][1]
+
+
+# -- submitit's pickled jobs stay out of the results folder -------------------------------------
+def test_job_files_go_to_a_private_folder_outside_the_results(tmp_path, monkeypatch):
+    monkeypatch.setenv("SEEDSWEEP_JOBS", str(tmp_path / "jobs"))
+    results = tmp_path / "results" / "night1"
+    results.mkdir(parents=True)
+    folder = slurm.jobs_folder(results)
+    assert results not in folder.parents and (tmp_path / "jobs") in folder.parents
+    assert folder.parent.name.startswith("night1-")
+    assert (tmp_path / "jobs").stat().st_mode & 0o077 == 0  # mkdir(mode=0o700)
+    (tmp_path / "jobs").chmod(0o777)  # writable by anyone: refused
+    with pytest.raises(ConfigError, match="writable by you only") as err:
+        slurm.jobs_folder(results)
+    assert err.value.field == "SEEDSWEEP_JOBS"
