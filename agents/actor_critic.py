@@ -35,7 +35,7 @@ from seedsweep.agents.common.distributions import (
     PolicyNetworkConfig,
     policy_supports,
 )
-from seedsweep.agents.common.networks import NumpyMLP, flat_dim
+from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp_bytes
 from seedsweep.agents.common.optim import adam
 from seedsweep.agents.common.returns import gae, nstep_returns
 from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
@@ -75,6 +75,15 @@ class ActorCritic(Agent):
             require("value_weight", self.value_weight, self.value_weight >= 0, ">= 0")
             require("entropy_weight", self.entropy_weight, self.entropy_weight >= 0, ">= 0")
             self.check_network()
+
+    @classmethod
+    def memory_bytes(cls, config, observation_space, action_space) -> dict[str, int]:
+        obs_dim = flat_dim(observation_space)
+        out = int(getattr(action_space, "n", 0)) or 2 * int(np.prod(action_space.shape))
+        per_step = config.num_envs * (2 * obs_dim * 4 + 8 + 8 + 2 + 2 * out * 4)
+        # policy and value networks, each with gradients and Adam's two moments
+        return {"rollout_steps": config.rollout_steps * per_step,
+                "hidden": 2 * mlp_bytes(obs_dim, config.hidden, out + 1, copies=4)}
 
     def __init__(self, observation_space, action_space, config, seed):
         super().__init__(observation_space, action_space, config, seed)

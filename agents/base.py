@@ -64,8 +64,11 @@ class Step:
 
     ``next_obs`` is the true successor observation: where an episode ended this step it is
     the final observation of that episode (not the reset observation), so an agent can
-    bootstrap from it on truncation. The arrays belong to the runner: read them, copy what
-    you keep, never write into them (some are shared and read-only).
+    bootstrap from it on truncation. The arrays belong to the runner and are read-only
+    (``obs`` is the very array ``act`` was given): read them, copy what you keep or change
+    (``x = step.next_obs.copy()``); writing into one raises ``ValueError: assignment
+    destination is read-only``, which ``seedsweep check-agent`` reports as an in-place
+    write at your line.
     """
 
     obs: np.ndarray  # (num_envs, *obs_shape)
@@ -121,6 +124,15 @@ class Agent(abc.ABC):
         """Whether this agent can act in ``action_space``."""
         return isinstance(action_space, cls.action_spaces)
 
+    @classmethod
+    def memory_bytes(cls, config: Any, observation_space: spaces.Space,
+                     action_space: spaces.Space) -> dict[str, int]:
+        """The most memory an instance will hold, in bytes, keyed by the Config field that
+        sets each amount (``{"replay_capacity": ...}``). Called before the run starts, so a
+        setting that cannot fit is refused naming that field instead of failing later.
+        Optional; the default counts nothing."""
+        return {}
+
     @property
     def gamma(self) -> float:
         return float(self.config.gamma)
@@ -128,7 +140,10 @@ class Agent(abc.ABC):
     @abc.abstractmethod
     def act(self, obs: np.ndarray, explore: bool) -> np.ndarray:
         """Actions for a batch of observations. ``explore=False`` asks for the
-        deterministic policy (argmax / mean) used by evaluation by default."""
+        deterministic policy (argmax / mean) used by evaluation by default.
+
+        ``obs`` is read-only (in training it is later passed back as ``Step.obs``): copy it
+        before changing it (``x = obs - mean`` makes a new array; ``obs -= mean`` raises)."""
 
     @abc.abstractmethod
     def observe(self, step: Step) -> dict[str, float]:

@@ -15,7 +15,7 @@ import numpy as np
 import torch
 from gymnasium import spaces
 from seedsweep.agents.base import Agent, Step, require
-from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp
+from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp, mlp_bytes
 from seedsweep.agents.common.optim import FlatParameters
 from seedsweep.agents.common.replay import ReplayBuffer
 from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
@@ -84,6 +84,14 @@ class DQN(Agent):
         self.updates = 0
         self._train_credit = 0
         self._last_target_copy = 0
+
+    @classmethod
+    def memory_bytes(cls, config: Config, observation_space, action_space) -> dict[str, int]:
+        obs_dim = flat_dim(observation_space)
+        n = int(action_space.n)
+        # q and target networks, flat parameters, gradients and Adam's two moments
+        return {"replay_capacity": ReplayBuffer.nbytes(config.replay_capacity, (obs_dim,)),
+                "hidden": mlp_bytes(obs_dim, config.hidden, n, copies=6)}
 
     # -- acting --------------------------------------------------------------------------
     def act(self, obs: np.ndarray, explore: bool) -> np.ndarray:

@@ -35,7 +35,7 @@ from seedsweep.agents.common.distributions import (
     PolicyNetworkConfig,
     policy_supports,
 )
-from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp
+from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp, mlp_bytes
 from seedsweep.agents.common.optim import adam, clip_grad_norm
 from seedsweep.agents.common.returns import discounted_returns
 from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
@@ -72,6 +72,13 @@ class Reinforce(Agent):
             require("adam_eps", self.adam_eps, self.adam_eps > 0, "> 0")
             require("entropy_weight", self.entropy_weight, self.entropy_weight >= 0, ">= 0")
             self.check_network()
+
+    @classmethod
+    def memory_bytes(cls, config, observation_space, action_space) -> dict[str, int]:
+        obs_dim = flat_dim(observation_space)
+        out = int(getattr(action_space, "n", 0)) or 2 * int(np.prod(action_space.shape))
+        # policy and value networks, each with gradients and Adam's two moments
+        return {"hidden": 2 * mlp_bytes(obs_dim, config.hidden, out + 1, copies=4)}
 
     def __init__(self, observation_space, action_space, config, seed):
         super().__init__(observation_space, action_space, config, seed)

@@ -7,20 +7,22 @@ training-only reward transforms and the shared observation normaliser.
 
 One env takes a lean path of its own: gymnasium's vector env costs more per step than a
 cheap env (CartPole) itself, which would dominate the runner's overhead.
+
+Every observation array handed out is read-only: the agent gets the same array in ``act``
+and later as ``Step.obs``, so a write into it would silently change what it learns from.
 """
 
 from __future__ import annotations
 
 import copy
-import pickle
 from collections.abc import Callable
 from typing import Any
 
-import cloudpickle
 import gymnasium as gym
 import numpy as np
 import torch
 from gymnasium.vector import AsyncVectorEnv, AutoresetMode, SyncVectorEnv
+from seedsweep.envs import snapshot
 from seedsweep.envs.normalize import ObsNormalizer
 
 RewardTransform = tuple[str, dict[str, Any]]
@@ -84,7 +86,7 @@ class TrainEnvs:
         self._returns[:] = 0.0
         self._lengths[:] = 0
         self._return1, self._length1 = 0.0, 0
-        return self._observe(obs)
+        return _frozen(self._observe(obs))
 
     def step(self, actions: np.ndarray):
         """Returns ``(obs, rewards, next_obs, terminated, truncated, finished)``.
@@ -96,6 +98,7 @@ class TrainEnvs:
             self._return1 += reward  # python numbers: cheaper than numpy scalars per step
             self._length1 += 1
             next_obs = np.asarray(obs)[None]
+            next_obs.setflags(write=False)  # (setflags: half the cost of flags.writeable)
             rewards = self._reward_arrays.get(reward)
             if rewards is None:  # most envs pay few distinct rewards: keep read-only arrays
                 rewards = np.array([reward], dtype=np.float64)
@@ -113,6 +116,7 @@ class TrainEnvs:
                     self.reset_rng_state = _rng_state(self._single)
                 reset_obs, _ = self._single.reset()
                 obs = np.asarray(reset_obs)[None]
+                obs.setflags(write=False)
             else:
                 obs = next_obs
         else:
@@ -130,19 +134,23 @@ class TrainEnvs:
                     finished.append((float(self._returns[i]), int(self._lengths[i])))
                 self._returns[done] = 0.0
                 self._lengths[done] = 0
+            for a in (obs, next_obs, rewards, terminated, truncated):
+                a.setflags(write=False)
         self.raw_obs = obs
-        for name, p in self.reward_transforms:
-            if name == "clip_reward":
-                rewards = np.clip(rewards, p["min"], p["max"])
-            elif name == "scale_reward":
-                rewards = rewards * p["scale"]
+        if self.reward_transforms:
+            for name, p in self.reward_transforms:
+                if name == "clip_reward":
+                    rewards = np.clip(rewards, p["min"], p["max"])
+                elif name == "scale_reward":
+                    rewards = rewards * p["scale"]
+            rewards.setflags(write=False)
         if self.normalizer is not None:
             self.normalizer.update(next_obs)
             if obs is not next_obs:
-                obs = self.normalizer(obs)
-                next_obs = self.normalizer(next_obs)
+                obs = _frozen(self.normalizer(obs))
+                next_obs = _frozen(self.normalizer(next_obs))
             else:
-                obs = next_obs = self.normalizer(obs)
+                obs = next_obs = _frozen(self.normalizer(obs))
         return obs, rewards, next_obs, terminated, truncated, finished
 
     def _observe(self, obs: np.ndarray) -> np.ndarray:
@@ -160,11 +168,12 @@ class TrainEnvs:
         return list(getattr(self._vector, "envs", []))
 
     def snapshot_kind(self) -> str:
-        """How this batch's env state can be saved: ``pickle`` (whole envs, any step),
-        ``reset`` (one env, at an episode end: its RNG before the reset) or ``none``."""
-        if (self.vector_mode != "async" or self.num_envs == 1) and pickles_faithfully(
+        """How this batch's env state can be saved: ``state`` (every env's attributes as
+        plain data, any step), ``reset`` (one env, at an episode end: its RNG before the
+        reset) or ``none``."""
+        if (self.vector_mode != "async" or self.num_envs == 1) and snapshot.restores_faithfully(
                 self._make_env):
-            return "pickle"
+            return "state"
         return "reset" if self.num_envs == 1 else "none"
 
     def state_dict(self, kind: str) -> dict[str, Any]:
@@ -174,12 +183,11 @@ class TrainEnvs:
             "kind": kind,
             "returns": torch.from_numpy(self._returns.copy()),
             "lengths": torch.from_numpy(self._lengths.copy()),
-            "raw_obs": torch.from_numpy(np.ascontiguousarray(self.raw_obs)),
+            "raw_obs": torch.from_numpy(np.array(self.raw_obs, copy=True)),
             "normalizer": self.normalizer.state_dict() if self.normalizer is not None else None,
         }
-        if kind == "pickle":
-            state["envs"] = torch.frombuffer(bytearray(cloudpickle.dumps(self.envs)),
-                                             dtype=torch.uint8)
+        if kind == "state":
+            state["envs"] = [snapshot.capture(env) for env in self.envs]
         elif kind == "reset":
             if self.reset_rng_state is None:
                 raise RuntimeError("no episode has ended since the last snapshot")
@@ -188,20 +196,23 @@ class TrainEnvs:
 
     def load_state_dict(self, state: dict[str, Any]) -> np.ndarray:
         """Restore the envs; returns the observation to act on next."""
+        if state.get("kind") not in ("state", "reset"):
+            raise RuntimeError(f"env state of kind {state.get('kind')!r} cannot be restored "
+                               "(only 'state' and 'reset'; pickled envs are never loaded)")
         self._returns[:] = state["returns"].numpy()
         self._lengths[:] = state["lengths"].numpy()
         self._return1, self._length1 = float(self._returns[0]), int(self._lengths[0])
         if self.normalizer is not None:
             self.normalizer.load_state_dict(state["normalizer"])
         raw = state["raw_obs"].numpy()
-        if state["kind"] == "pickle":
-            envs = pickle.loads(state["envs"].numpy().tobytes())
-            self.close()
-            if self.num_envs == 1:
-                self._single = envs[0]
-            else:
-                self._vector = SyncVectorEnv([(lambda e=e: e) for e in envs],
-                                             autoreset_mode=AutoresetMode.SAME_STEP)
+        if state["kind"] == "state":
+            envs = self.envs
+            if len(state["envs"]) != len(envs):
+                raise snapshot.SnapshotError(f"{len(state['envs'])} env states for "
+                                             f"{len(envs)} envs")
+            for env, saved in zip(envs, state["envs"], strict=True):
+                env.reset(seed=0)  # makes the lazily created attributes, then overwritten
+                snapshot.restore(env, saved)
         elif state["kind"] == "reset":
             env = self._single
             env.reset(seed=0)  # creates the RNG, then it is overwritten
@@ -212,7 +223,7 @@ class TrainEnvs:
         else:
             raise RuntimeError(f"env state of kind {state['kind']!r} cannot be restored")
         self.raw_obs = raw
-        return raw if self.normalizer is None else self.normalizer(raw)
+        return _frozen(raw if self.normalizer is None else self.normalizer(raw))
 
     def close(self) -> None:
         if self._single is not None:
@@ -221,33 +232,12 @@ class TrainEnvs:
             self._vector.close()
 
 
+def _frozen(a: np.ndarray) -> np.ndarray:
+    """``a`` made read-only (a fresh array or view the batch layer owns): the runner's
+    arrays are read by agents, never written."""
+    a.setflags(write=False)
+    return a
+
+
 def _rng_state(env: gym.Env) -> dict:
     return copy.deepcopy(env.unwrapped.np_random.bit_generator.state)
-
-
-def pickles_faithfully(make_env: Callable[[], gym.Env], steps: int = 30) -> bool:
-    """Whether a pickled copy of an env carries on exactly like the env itself.
-
-    Checked on a throwaway env: some envs pickle without error yet lose state (box2d
-    bodies come back empty), so only a side-by-side replay tells.
-    """
-    env = make_env()
-    try:
-        env.reset(seed=12345)
-        env.action_space.seed(12345)
-        actions = [env.action_space.sample() for _ in range(2 * steps)]
-        for a in actions[:steps]:
-            if any(env.step(a)[2:4]):
-                env.reset()
-        copy_ = pickle.loads(cloudpickle.dumps(env))
-        for a in actions[steps:]:
-            ours, theirs = env.step(a), copy_.step(a)
-            if not (np.array_equal(ours[0], theirs[0]) and ours[1:4] == theirs[1:4]):
-                return False
-            if any(ours[2:4]):
-                return True
-        return True
-    except Exception:  # an env that cannot be pickled or stepped after it: not faithful
-        return False
-    finally:
-        env.close()

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import importlib
 import logging
 import warnings
@@ -9,8 +10,10 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import gymnasium as gym
+import numpy as np
 from gymnasium.utils.env_checker import check_env
 from seedsweep.configs.checks import ConfigError, check_type
+from seedsweep.configs.memory import check_fits
 from seedsweep.envs.batch import TrainEnvs
 from seedsweep.envs.normalize import ObsNormalizer
 from seedsweep.envs.wrappers import WRAPPERS, parse_wrappers
@@ -18,6 +21,10 @@ from seedsweep.envs.wrappers import WRAPPERS, parse_wrappers
 logger = logging.getLogger(__name__)
 
 ENV_KEYS = {"name", "id", "kwargs", "max_episode_steps", "reference", "wrappers"}
+# Bytes a frame stack of k observations of b bytes holds per env, over k * b: measured 11-15
+# after a reset and a step (gymnasium 1.x on CartPole-v1: the stacked and flattened spaces'
+# bounds, the queue and the stacked observation), rounded up.
+FRAME_STACK_FACTOR = 16
 
 
 @dataclass(frozen=True)
@@ -31,6 +38,7 @@ class EnvSpec:
     reference: float | None = None
     wrappers: tuple[tuple[str, dict[str, Any]], ...] = ()
     make_id: str = ""  # what gym.make is called with (differs for module:Class entries)
+    instance_bytes: int = 0  # estimated memory of one built env (observation-sized buffers)
 
     @property
     def env_wrappers(self) -> list[tuple[str, dict[str, Any]]]:
@@ -78,6 +86,7 @@ def parse_env_config(cfg: dict[str, Any]) -> EnvSpec:
         reference=ref,
         wrappers=tuple(parse_wrappers(cfg.get("wrappers"))),
     )
+    spec = dataclasses.replace(spec, instance_bytes=_instance_bytes(spec))
     env = make_env(spec)
     try:
         if not _has_time_limit(env):
@@ -124,19 +133,65 @@ def _resolve_id(env_id: str) -> str:
     return env_id
 
 
-def make_env(spec: EnvSpec) -> gym.Env:
-    """One env with the per-env wrappers of ``spec``, in list order."""
+def _bare_env(spec: EnvSpec) -> gym.Env:
+    """The env with its kwargs and time limit, before the config's wrappers. Whatever the
+    env raises on its kwargs (a TypeError, or a KeyError for an unknown map name) is one
+    ConfigError line naming the kwarg when the message shows which."""
     kwargs = dict(spec.kwargs)
     if spec.max_episode_steps is not None:
         kwargs["max_episode_steps"] = spec.max_episode_steps
     try:
-        env = gym.make(spec.make_id, disable_env_checker=True, **kwargs)
-    except TypeError as err:
-        raise ConfigError("env.kwargs", f"{spec.id} rejects {spec.kwargs}: {err}") from None
+        return gym.make(spec.make_id, disable_env_checker=True, **kwargs)
+    except ConfigError:
+        raise
+    except Exception as err:  # an env constructor may raise anything on a bad kwarg
+        text = str(err).strip().splitlines()
+        reason = f"{type(err).__name__}: {text[0] if text else ''}".rstrip(": ")
+        field = "env.kwargs" if spec.kwargs else "env.id"
+        named = [k for k, v in spec.kwargs.items() if str(k) in reason or (
+            isinstance(v, (str, int, float)) and not isinstance(v, bool) and repr(v) in reason)]
+        if len(named) == 1:
+            field = f"env.kwargs.{named[0]}"
+        what = f"with kwargs {spec.kwargs}" if spec.kwargs else "with no kwargs"
+        raise ConfigError(field, f"{spec.id} cannot be built {what} ({reason})") from None
+
+
+def make_env(spec: EnvSpec) -> gym.Env:
+    """One env with the per-env wrappers of ``spec``, in list order."""
+    env = _bare_env(spec)
     _check_once(spec, env)
-    for name, params in spec.env_wrappers:
-        env = WRAPPERS[name].apply(env, params)
+    for i, (name, params) in enumerate(spec.wrappers):
+        if WRAPPERS[name].stage != "env":
+            continue
+        try:
+            env = WRAPPERS[name].apply(env, params)
+        except Exception as err:  # e.g. a wrapper that does not fit the observation space
+            text = str(err).strip().splitlines()
+            raise ConfigError(f"env.wrappers[{i}]", f"{name} cannot wrap {spec.id} "
+                              f"({type(err).__name__}: {text[0] if text else ''})") from None
     return env
+
+
+def _instance_bytes(spec: EnvSpec) -> int:
+    """Estimated bytes of one built env's observation-sized buffers; a frame stack that
+    cannot fit is refused here, before it is built (building it is what would hang)."""
+    env = _bare_env(spec)
+    try:
+        space = env.observation_space
+        obs = int(np.prod(space.shape or (1,))) * np.dtype(space.dtype or np.int64).itemsize
+    finally:
+        env.close()
+    total = 0
+    for i, (name, params) in enumerate(spec.wrappers):
+        if name == "one_hot" and isinstance(space, gym.spaces.Discrete):
+            obs = int(space.n) * 8  # gymnasium flattens Discrete to int64 one-hot vectors
+        elif name == "frame_stack":
+            obs *= params["size"]
+            total += FRAME_STACK_FACTOR * obs
+            check_fits(f"env.wrappers[{i}].size", 2 * FRAME_STACK_FACTOR * obs,
+                       f"frame_stack of {params['size']} observations (a training and an "
+                       "evaluation env)")
+    return total + 4 * obs
 
 
 def _check_once(spec: EnvSpec, env: gym.Env) -> None:

@@ -112,5 +112,12 @@ def parse_wrappers(entries: list[Any]) -> list[tuple[str, dict[str, Any]]]:
             filled[pname] = value
         if name == "normalize_obs" and filled["epsilon"] <= 0:
             raise ConfigError(f"{where}.epsilon", f"must be > 0 (got {filled['epsilon']!r})")
+        if name == "normalize_obs" and filled["clip"] <= 0:  # would clamp every value to 0
+            raise ConfigError(f"{where}.clip", f"must be > 0 (got {filled['clip']!r})")
+        if name == "clip_reward" and not filled["min"] < filled["max"]:  # else a constant
+            raise ConfigError(f"{where}.max", f"must be > min (got min {filled['min']!r}, "
+                              f"max {filled['max']!r})")
+        if name == "scale_reward" and filled["scale"] == 0:
+            raise ConfigError(f"{where}.scale", "must be non-zero (0 makes every reward 0)")
         out.append((name, filled))
     return out

@@ -207,6 +207,77 @@ class NotWeightsOnly(Tidy):
         self.steps = int(state["steps"])
 
 
+class ForgetsExplorationRNG(Tidy):
+    """epsilon-greedy from a generator of its own that state_dict leaves out, with epsilon
+    decaying linearly to 0 over the first 150 env steps (a short decay, as DQN-style agents
+    have): past that it draws nothing, so a round trip taken only late never sees the gap."""
+
+    DECAY_STEPS = 150
+
+    def __init__(self, *args):
+        super().__init__(*args)
+        self.explore_rng = np.random.default_rng(self.seed + 1)
+
+    def act(self, obs, explore):
+        greedy = super().act(obs, False)
+        epsilon = max(0.0, 1.0 - self.steps / self.DECAY_STEPS)
+        if not explore or not self.discrete or epsilon == 0.0:
+            return greedy
+        uniform = self.explore_rng.integers(self.n, size=len(obs))
+        return np.where(self.explore_rng.random(len(obs)) < epsilon, uniform, greedy)
+
+
+class ForgetsEpisodeStatistic(Tidy):
+    """Sums the return of the episode in progress outside state_dict; at each episode end it
+    folds that sum into a saved running mean of episode returns, which sets how often it
+    explores. Restored in the middle of an episode, the copy's sum starts again from 0."""
+
+    def __init__(self, *args):
+        super().__init__(*args)
+        self.episode_return = np.zeros(self.config.num_envs)  # not saved: the break
+        self.mean_return = 0.0
+        self.episodes = 0
+
+    def explore_draws(self, k):
+        # explores less once its episodes average more than 20 (CartPole-v1 pays 1 a step)
+        return self.rng.random(k) + (0.3 if self.mean_return > 20.0 else 0.0)
+
+    def observe(self, step):
+        self.episode_return += step.rewards
+        for i in np.flatnonzero(step.terminated | step.truncated):
+            self.episodes += 1
+            self.mean_return += (self.episode_return[i] - self.mean_return) / self.episodes
+            self.episode_return[i] = 0.0
+        return super().observe(step)
+
+    def state_dict(self):
+        return {**super().state_dict(), "mean_return": float(self.mean_return),
+                "episodes": self.episodes}
+
+    def load_state_dict(self, state):
+        super().load_state_dict(state)
+        self.mean_return = float(state["mean_return"])
+        self.episodes = int(state["episodes"])
+
+
+# -- in-place writes into the runner's arrays (every check that calls the agent) -------------
+class CentersObsInPlace(Tidy):
+    """Centres the observations act() is given in place (which, before act's arrays were
+    read-only, also changed the Step.obs it later learned from)."""
+
+    def act(self, obs, explore):
+        obs -= obs.mean(axis=1, keepdims=True)
+        return super().act(obs, explore)
+
+
+class ZeroesFinalObs(Tidy):
+    """Blanks the final observation of finished episodes in the Step itself."""
+
+    def observe(self, step):
+        step.next_obs[step.terminated | step.truncated] = 0
+        return super().observe(step)
+
+
 # -- check "learn_loop" --------------------------------------------------------------------
 class NaNMetric(Tidy):
     def observe(self, step):

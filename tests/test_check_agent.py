@@ -133,6 +133,70 @@ def test_each_broken_agent_is_caught_by_its_check(breaker, envs, expected, exit_
     assert code == exit_status
 
 
+# Four breaks the check missed at its default 300 steps when it saved once, at the last step
+# (measured: the exploration generator at 300, 1000 and 3000 steps, the episode statistic at
+# 300), and writes into the arrays act() and observe() get, which it never saw. At the
+# default step count now, each is caught by the check named for it, and an in-place write
+# is named as one, at the breaker's own line.
+DEFAULT_STEP_CASES = [
+    ("ForgetsExplorationRNG", ("cartpole", "round_trip"),
+     "saved right after the first episode end"),
+    ("ForgetsEpisodeStatistic", ("cartpole", "round_trip"), "state.mean_return"),
+    ("CentersObsInPlace", ("cartpole", "actions"),
+     "writes in place into the observations passed to act() (at "),
+    ("ZeroesFinalObs", ("cartpole", "actions"),
+     "observe() writes in place into an array of the Step"),
+]
+
+
+@pytest.mark.parametrize("breaker,key,text", DEFAULT_STEP_CASES,
+                         ids=[c[0] for c in DEFAULT_STEP_CASES])
+def test_breaks_missed_before_are_caught_at_the_default_steps(breaker, key, text, capsys):
+    code, lines = run(capsys, BREAKERS + breaker, "env=cartpole")
+    assert code == 1
+    assert lines[key][0] == "FAIL" and text in lines[key][1], lines[key]
+    assert lines[("cartpole", "spaces")][0] == "PASS"
+    if "in place" in text:  # the line of the breaker that writes, found by its source text
+        source = Path(__file__).with_name("contract_breakers.py").read_text().splitlines()
+        writes = [i + 1 for i, ln in enumerate(source)
+                  if ("obs -= " in ln or "step.next_obs[" in ln)]
+        assert any(f"contract_breakers.py:{n})" in lines[key][1]
+                   or f"contract_breakers.py:{n}," in lines[key][1] for n in writes), lines[key]
+    else:  # a gap in state_dict leaves every other check passing
+        others = [c for c in PER_ENV if c != key[1]]
+        assert all(lines[("cartpole", c)][0] == "PASS" for c in others), lines
+
+
+def test_the_round_trip_saves_at_several_points_including_an_episode_end(capsys):
+    code, lines = run(capsys, BREAKERS + "Tidy", "env=cartpole")
+    assert code == 0
+    detail = lines[("cartpole", "round_trip")][1]
+    for point in ("right after the first episode end", "in the middle of an episode",
+                  "right after a later episode end", "at the last step"):
+        assert point in detail, detail
+
+
+def test_act_and_observe_get_read_only_arrays():
+    """The runner's own step (env_step) and evaluation hand out arrays numpy refuses to
+    write (numpy raises ValueError on assignment to an array whose WRITEABLE flag is off)."""
+    from seedsweep.envs.build import make_train_envs, parse_env_config
+    from seedsweep.runner.execution.config import compose
+    from seedsweep.runner.execution.loop import env_step
+
+    spec = parse_env_config(compose(["env=cartpole"])["env"])
+    envs = make_train_envs(spec)
+    try:
+        obs = envs.reset(seed=0)
+        step, nxt, _ = env_step(envs, obs, np.zeros(1, dtype=np.int64), 0)
+        for name in ("obs", "rewards", "next_obs", "terminated", "truncated"):
+            with pytest.raises(ValueError, match="read-only"):
+                getattr(step, name)[...] = 0
+        with pytest.raises(ValueError, match="read-only"):
+            nxt[...] = 0
+    finally:
+        envs.close()
+
+
 def test_a_file_path_target_works_too(capsys):
     path = Path(__file__).with_name("contract_breakers.py")
     code, lines = run(capsys, f"{path}:OutOfSpace", "env=cartpole", FAST)

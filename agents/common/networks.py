@@ -145,3 +145,11 @@ def flat_dim(space) -> int:
             f"observation space {space} is not a Box; add the one_hot wrapper for Discrete"
         )
     return int(np.prod(shape))
+
+
+def mlp_bytes(in_dim: int, hidden: Sequence[int], out_dim: int, copies: int = 1) -> int:
+    """Bytes of ``copies`` float32 copies of an :func:`mlp`'s parameters (the network, its
+    gradients, Adam's two moments, a target network ...): for memory estimates."""
+    dims = [int(in_dim), *(int(h) for h in hidden), int(out_dim)]
+    params = sum(a * b + b for a, b in zip(dims[:-1], dims[1:], strict=True))
+    return 4 * params * copies

@@ -36,6 +36,14 @@ class ReplayBuffer:
         self.pos = 0
         self.size = 0
 
+    @staticmethod
+    def nbytes(capacity: int, obs_shape: tuple[int, ...], action_shape: tuple[int, ...] = (),
+               obs_dtype: Any = np.float32, action_dtype: Any = np.int64) -> int:
+        """Bytes a buffer of this capacity holds when full (for memory estimates)."""
+        obs = int(np.prod(obs_shape)) * np.dtype(obs_dtype).itemsize
+        action = int(np.prod(action_shape)) * np.dtype(action_dtype).itemsize
+        return int(capacity) * (2 * obs + action + 4 + 4)
+
     def __len__(self) -> int:
         return self.size
 

@@ -21,12 +21,14 @@ import numpy as np
 from gymnasium import spaces
 from seedsweep.agents.base import CONTRACT_VERSION, Agent
 from seedsweep.runner.agent_check.harness import (
+    MIN_STEPS,
     CheckFailed,
     EnvCase,
     Rollout,
     Subject,
     call,
     describe_error,
+    frozen,
     lockstep,
     measure_growth,
     rollout,
@@ -38,10 +40,10 @@ from seedsweep.runner.agent_check.inspect import (
     action_problem,
     declared,
     metrics_problem,
-    roundtrip_bytes,
     same_actions,
     supports,
 )
+from seedsweep.runner.agent_check.round_trip import check_round_trip
 from seedsweep.runner.execution.seeding import (
     capture_global_rngs,
     restore_global_rngs,
@@ -54,8 +56,6 @@ DEFAULT_ENVS = ("cartpole", "pendulum", "frozenlake")
 
 DEFAULT_STEPS = 300  # act/observe calls per loop; "a few hundred" keeps a check run short
 
-
-MIN_STEPS = 20
 
 
 ACTION_STEPS = 50  # training steps between the two action probes of the actions check
@@ -131,7 +131,7 @@ def refusal(s: Subject, obs_space: spaces.Space, space: spaces.Space) -> tuple[b
     except Exception as err:  # refusing is what is asked for; any exception type will do
         return True, describe_error(err)
     obs_space.seed(0)
-    obs = np.stack([obs_space.sample() for _ in range(2)])
+    obs = frozen(np.stack([obs_space.sample() for _ in range(2)]))
     try:
         actions = agent.act(obs, True)
     except Exception as err:  # constructed, then failed at the first act: not a clean refusal
@@ -185,7 +185,8 @@ def probe_actions(agent: Agent, batches: list[tuple[str, np.ndarray]], space: sp
     count = 0
     for label, obs in batches:
         for explore in (False, True):
-            actions = call(f"act({label}, explore={explore})", agent.act, obs.copy(), explore)
+            actions = call(f"act({label}, explore={explore})", agent.act, frozen(obs),
+                           explore)
             problem = action_problem(actions, len(obs), space)
             if problem:
                 raise CheckFailed(f"{when}, act(explore={explore}) on a {label}: {problem}")
@@ -201,7 +202,7 @@ def check_actions(s: Subject, case: EnvCase) -> tuple[str, str]:
                    ("evaluation batch of 1", roll.eval_batch())]
         probes = probe_actions(agent, batches, space, "fresh agent")
         for _ in range(ACTION_STEPS):
-            actions = call("act(explore=True)", agent.act, roll.obs.copy(), True)
+            actions = call("act(explore=True)", agent.act, frozen(roll.obs), True)
             problem = action_problem(actions, s.num_envs, space)
             if problem:
                 raise CheckFailed(f"training step at env step {roll.env_steps}: {problem}")
@@ -244,43 +245,6 @@ def check_determinism(s: Subject, case: EnvCase, steps: int) -> tuple[str, str]:
     return "PASS", f"{done}; seed {s.seed + 1} differs from env step {other_differs[0]}"
 
 
-def check_round_trip(s: Subject, case: EnvCase, steps: int) -> tuple[str, str]:
-    original = s.make(case)
-    more = max(MIN_STEPS, steps // 5)
-    with rollout(s, case) as roll:
-        for _ in range(steps):
-            step = roll.step(call("act(explore=True)", original.act, roll.obs.copy(), True))
-            call(f"observe() at env step {step.env_steps}", original.observe, step)
-        saved_at = roll.env_steps
-        loaded, size = roundtrip_bytes(call("state_dict()", original.state_dict))
-        restored = s.make(case)
-        call("load_state_dict(torch.load(...))", restored.load_state_dict, loaded)
-        diff = first_difference(call("state_dict()", original.state_dict),
-                                call("state_dict()", restored.state_dict))
-        if diff:
-            raise CheckFailed(f"right after load_state_dict, state_dict() differs from the "
-                              f"saved one at {diff}")
-
-        def compare(env_step: int, greedy: list[np.ndarray], explore: list[np.ndarray]) -> None:
-            for kind, acts in (("greedy", greedy), ("exploring", explore)):
-                if not same_actions(acts[0], acts[1]):
-                    raise CheckFailed(
-                        f"saved at env step {saved_at}, restored copy's {kind} actions differ "
-                        f"at env step {env_step}: {acts[0]!r} vs {acts[1]!r} (state_dict is "
-                        "missing something)")
-
-        lockstep([original, restored], roll, more, compare)
-        env_steps = roll.env_steps
-    diff = first_difference(call("state_dict()", original.state_dict),
-                            call("state_dict()", restored.state_dict))
-    if diff:
-        raise CheckFailed(f"saved at env step {saved_at}; after {env_steps - saved_at} more env "
-                          f"steps the restored copy's state_dict differs at {diff}")
-    return "PASS", (f"saved at env step {saved_at} ({size / 1024:.0f} KiB, "
-                    f"weights_only load), restored copy identical for {env_steps - saved_at} "
-                    "more env steps")
-
-
 RNG_NAMES = {"python": "python random", "numpy": "numpy.random (legacy global)",
              "torch": "torch global"}
 
@@ -311,7 +275,7 @@ def _check_global_rng(s: Subject, case: EnvCase, steps: int) -> tuple[str, str]:
             for what, explore, obs in (("act(explore=False)", False, eval_obs),
                                        ("act(explore=True)", True, roll.obs)):
                 before = capture_global_rngs()
-                actions = call(what, agent.act, obs.copy(), explore)
+                actions = call(what, agent.act, frozen(obs), explore)
                 if changed_rngs(before):
                     raise CheckFailed(f"{what} at env step {roll.env_steps} changed the "
                                       f"{' and '.join(changed_rngs(before))} RNG state")

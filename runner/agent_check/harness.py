@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import gc
 import os
+import sysconfig
 import traceback
 import tracemalloc
 from collections.abc import Callable
@@ -24,6 +25,9 @@ from seedsweep.runner.execution.state import nbytes
 ENV_SEED_OFFSET = 1000  # training env seeds: seed + 1000 + i, apart from the agent seeds
 
 
+MIN_STEPS = 20  # the fewest act/observe calls a loop of check-agent makes
+
+
 MEMORY_SLACK = 1 << 20
 
 
@@ -34,29 +38,74 @@ class CheckFailed(Exception):
     """A broken promise; the message is the FAIL line's reason."""
 
 
+LIBRARY_ROOTS = tuple(Path(p).resolve() for key, p in sysconfig.get_paths().items()
+                      if key in ("stdlib", "platstdlib", "purelib", "platlib"))
+
+
+def _is_library(filename: str) -> bool:
+    path = Path(filename).resolve()
+    return filename.startswith("<") or any(r == path or r in path.parents
+                                           for r in LIBRARY_ROOTS)
+
+
+def where(err: BaseException) -> str:
+    """``file:line`` of the innermost frame of ``err`` in the user's code (not in numpy,
+    torch or the standard library, which a failed write goes through), relative to the
+    current folder when inside it; ``""`` if there is none."""
+    frames = traceback.extract_tb(err.__traceback__)
+    if not frames:
+        return ""
+    own = [f for f in frames if not _is_library(f.filename)]
+    f = (own or frames)[-1]
+    try:
+        name = str(Path(f.filename).resolve().relative_to(Path.cwd()))
+    except ValueError:
+        name = f.filename
+    return f"{name}:{f.lineno}"
+
+
 def describe_error(err: BaseException) -> str:
     """``Type: first line (at file:line)`` of an exception raised inside the agent."""
     text = str(err).strip().splitlines()
-    frames = traceback.extract_tb(err.__traceback__)
-    where = ""
-    if frames:
-        f = frames[-1]
-        try:
-            name = str(Path(f.filename).resolve().relative_to(Path.cwd()))
-        except ValueError:
-            name = f.filename
-        where = f" (at {name}:{f.lineno})"
-    return f"{type(err).__name__}: {text[0] if text else ''}{where}"
+    at = where(err)
+    return f"{type(err).__name__}: {text[0] if text else ''}" + (f" (at {at})" if at else "")
+
+
+def in_place_write(what: str, err: BaseException) -> str | None:
+    """The FAIL reason for a write into one of the runner's read-only arrays, or None."""
+    if not (isinstance(err, ValueError) and "read-only" in str(err)):
+        return None
+    if what.startswith("act("):
+        target = "the observations passed to act()"
+    elif what.startswith("observe("):
+        target = "an array of the Step passed to observe() (obs, actions, rewards, next_obs, " \
+                 "terminated, truncated)"
+    else:
+        target = "an array the runner passed in"
+    head, _, when = what.partition(" at ")
+    place = ", ".join(x for x in (f"at {where(err)}" if where(err) else "", when) if x)
+    return (f"{head} writes in place into {target}" + (f" ({place})" if place else "")
+            + "; these arrays are read-only and shared with the runner: copy before "
+            "changing them")
 
 
 def call(what: str, fn: Callable[..., Any], *args: Any) -> Any:
-    """Call into the agent; an exception becomes a FAIL that says which call raised."""
+    """Call into the agent; an exception becomes a FAIL that says which call raised (an
+    in-place write into a read-only runner array is named as such, with the user's line)."""
     try:
         return fn(*args)
     except CheckFailed:
         raise
     except Exception as err:  # any exception from agent code is the finding
-        raise CheckFailed(f"{what} raised {describe_error(err)}") from err
+        raise CheckFailed(in_place_write(what, err)
+                          or f"{what} raised {describe_error(err)}") from err
+
+
+def frozen(a: np.ndarray) -> np.ndarray:
+    """A read-only copy of ``a``: what act() and observe() get from the runner."""
+    out = np.array(a, copy=True)
+    out.flags.writeable = False
+    return out
 
 
 @dataclass
@@ -111,7 +160,7 @@ class Rollout:
         finally:
             env.close()
         x = np.asarray(obs)[None]
-        return x if self.envs.normalizer is None else self.envs.normalizer(x)
+        return frozen(x if self.envs.normalizer is None else self.envs.normalizer(x))
 
     def close(self) -> None:
         self.envs.close()
@@ -124,8 +173,8 @@ class Rollout:
 
 
 def copy_step(step: Step) -> Step:
-    """An independent copy, so one agent's in-place edits cannot reach another agent."""
-    return Step(*(np.array(getattr(step, f), copy=True) for f in
+    """An independent read-only copy, as the runner's own Step arrays are read-only."""
+    return Step(*(frozen(getattr(step, f)) for f in
                   ("obs", "actions", "rewards", "next_obs", "terminated", "truncated")),
                 step.env_steps)
 
@@ -154,12 +203,18 @@ def rollout(s: Subject, case: EnvCase) -> Rollout:
 
 
 def lockstep(agents: list[Agent], roll: Rollout, steps: int,
-             on_actions: Callable[[int, list[np.ndarray], list[np.ndarray]], None]) -> None:
+             on_actions: Callable[[int, list[np.ndarray], list[np.ndarray]], None],
+             episodes: int = 0, limit: int = 0) -> None:
     """Step ``roll`` with the first agent's actions; every agent acts on and observes the
-    same values (copies), greedy first as an evaluation would, then exploring."""
-    for _ in range(steps):
-        greedy = [call("act(explore=False)", a.act, roll.obs.copy(), False) for a in agents]
-        explore = [call("act(explore=True)", a.act, roll.obs.copy(), True) for a in agents]
+    same values (read-only copies), greedy first as an evaluation would, then exploring.
+    At least ``steps`` steps, then on until ``episodes`` episodes have ended since the start
+    (at most ``limit`` steps in all)."""
+    start = roll.episodes
+    done = 0
+    while done < steps or (roll.episodes - start < episodes and done < max(limit, steps)):
+        done += 1
+        greedy = [call("act(explore=False)", a.act, frozen(roll.obs), False) for a in agents]
+        explore = [call("act(explore=True)", a.act, frozen(roll.obs), True) for a in agents]
         on_actions(roll.env_steps, greedy, explore)
         step = roll.step(explore[0])
         for i, a in enumerate(agents):

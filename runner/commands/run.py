@@ -148,7 +148,7 @@ def _run(argv: Sequence[str]) -> int:
 def run_single(p: PreparedRun, opts: SweepOptions) -> int:
     """One run in this process, with its own progress display; same skip/resume rules."""
     interrupt_on_sigterm()
-    check_code_version(p.run_dir.parent, opts.allow_mixed_code)
+    check_code_version(p.run_dir.parent, opts.allow_mixed_code, p.agent_code)
     try:
         doc = execute(p, RunProgress(p.label, int(p.config["steps"]), mode=opts.progress),
                       retry_failed=opts.retry_failed)

@@ -21,7 +21,7 @@ import yaml
 from hydra import compose as hydra_compose
 from hydra import initialize_config_dir
 from hydra.core.override_parser.overrides_parser import OverridesParser
-from hydra.errors import HydraException, OverrideParseException
+from hydra.errors import HydraException
 from omegaconf import OmegaConf
 from omegaconf.errors import OmegaConfBaseException
 from seedsweep.configs.checks import ConfigError, check_type, suggest, unknown_key
@@ -38,6 +38,22 @@ AGENT_SECTIONS = ("per_env", "search")
 SECTION_KEYS = {"eval": ("deterministic", "episodes", "every"), "checkpoint": ("every",),
                 "log": ("every",)}
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_][A-Za-z0-9_.-]*$")
+MAX_NAME = 100  # a run id joins two names; a path component may have 255 bytes
+MAX_EVAL_EPISODES = 100_000  # episode seeds are drawn up front, during the checks
+
+
+def check_name(field: str, value: Any) -> str:
+    """A name that becomes part of a folder name (``sweep``, ``agent.name``, ``env.name``):
+    letters, digits, ``_``, ``-``, ``.``, not starting with ``.`` or ``-``, so it can
+    neither leave ``results_dir`` nor hide from ``status`` and ``report``."""
+    if value is None:
+        raise ConfigError(field, "missing (a name of letters, digits, '_', '-', '.')")
+    name = check_type(field, value, str)
+    if not SAFE_NAME.match(name) or len(name) > MAX_NAME:
+        raise ConfigError(field, f"must be a name of letters, digits, '_', '-', '.' (not "
+                          f"starting with '.' or '-', at most {MAX_NAME} characters; got "
+                          f"{name!r})")
+    return name
 
 
 def config_dir() -> Path:
@@ -89,23 +105,50 @@ def read_yaml(path: Path, field: str) -> Any:
     except UnicodeDecodeError:
         raise ConfigError(field, f"{path} is not UTF-8 text") from None
     except yaml.YAMLError as err:
-        first = str(err).strip().splitlines()
-        raise ConfigError(field, f"{path} is not valid YAML ({' '.join(first[:2])})") from None
+        mark = getattr(err, "problem_mark", None)
+        problem = getattr(err, "problem", None)
+        if problem and mark is not None:
+            where = f"{problem}, line {mark.line + 1}, column {mark.column + 1}"
+        else:
+            where = " ".join(str(err).strip().split())[:200]
+        raise ConfigError(field, f"{path} is not valid YAML ({where})") from None
     except OSError as err:
         raise ConfigError(field, f"cannot read {path} ({err.strerror or err})") from None
 
 
+NAME_KEYS = ("sweep", "agent.name", "env.name")  # values checked by check_name
+
+
 def parse_overrides(overrides: Sequence[str]) -> list[Any]:
-    """hydra's parsed overrides; a syntax error is one ConfigError line."""
+    """hydra's parsed overrides; a syntax error is one ConfigError line naming the key of
+    the override that does not parse."""
     parser = OverridesParser.create()
     try:
         return parser.parse_overrides(list(overrides))
-    except OverrideParseException as err:
-        raise ConfigError("overrides", str(err).strip().splitlines()[0]) from None
-    except Exception as err:  # hydra's lexer raises its own types on odd characters
-        raise ConfigError("overrides", f"cannot parse {' '.join(overrides)!r}: "
-                          f"{str(err).strip().splitlines()[0] if str(err).strip() else err}"
-                          ) from None
+    except Exception:  # hydra's lexer raises its own types on odd characters
+        for one in overrides:
+            try:
+                parser.parse_overrides([one])
+            except Exception as err:  # the same assorted types, one override at a time
+                raise _unparsable(one, err) from None
+        raise ConfigError("overrides", f"cannot parse {' '.join(overrides)!r}") from None
+
+
+def _unparsable(override: str, err: Exception) -> ConfigError:
+    key, sep, value = override.partition("=")
+    key = key.strip().lstrip("+~")
+    if not sep or not re.fullmatch(r"[A-Za-z_][\w.\-/]*", key):
+        return ConfigError("overrides", f"expected key=value, got {override!r}")
+    if key in NAME_KEYS:
+        try:
+            check_name(key, value)
+        except ConfigError as bad:
+            return bad
+    text = str(err).strip().splitlines()
+    why = text[0] if text and not text[0].startswith(("LexerNoViable", "no viable")) else (
+        "characters the override grammar does not take unquoted")
+    return ConfigError(key, f"cannot read the value {value!r} ({why}); quote text with "
+                       f"other characters: {key}='...'")
 
 
 def hydra_value(value: Any) -> str:
@@ -158,10 +201,11 @@ def compose(overrides: Sequence[str], extra_dirs: Sequence[Path | str] = ()) -> 
 
 
 def _as_addition(message: str, overrides: list[str]) -> list[str] | None:
-    """An ``agent.KEY=V`` or ``env.KEY=V`` override whose YAML lacks KEY becomes
-    ``+agent.KEY=V``: the agent's Config (or the env schema) then accepts it or refuses it
-    naming the allowed keys, so no one has to know hydra's ``+`` rule."""
-    m = re.search(r"Could not override '((?:agent|env)\.[^'.]+)'", message)
+    """An ``agent.KEY=V``, ``env.KEY=V`` or ``env.kwargs.KEY=V`` override whose YAML lacks
+    KEY becomes ``+agent.KEY=V``: the agent's Config (or the env schema, or the env itself)
+    then accepts it or refuses it naming the allowed keys, so no one has to know hydra's
+    ``+`` rule."""
+    m = re.search(r"Could not override '((?:agent|env|env\.kwargs)\.[^'.]+)'", message)
     if not m:
         return None
     key = m.group(1)
@@ -197,6 +241,9 @@ def apply_per_env(resolved: dict[str, Any], overrides: Sequence[str]) -> dict[st
 
 
 def _check_groups(overrides: Sequence[str], extra_dirs: Sequence[Path | str]) -> None:
+    """The chosen agent and env configs exist and are readable YAML mappings (hydra would
+    otherwise stop with a YAML or decoding traceback)."""
+    chosen = dict(default_groups())
     for o in parse_overrides(overrides):
         key = o.get_key_element().lstrip("+~")
         if key in PLAN_GROUPS:
@@ -208,17 +255,36 @@ def _check_groups(overrides: Sequence[str], extra_dirs: Sequence[Path | str]) ->
             if value not in allowed:
                 raise ConfigError(key, f"unknown option {value!r} (allowed: "
                                   f"{', '.join(allowed)})" + suggest(value, allowed))
+            chosen[key] = value
+    for group, name in chosen.items():
+        path = group_file(group, name, extra_dirs)
+        doc = read_yaml(path, group)
+        if not isinstance(doc, dict):
+            raise ConfigError(group, f"{path} must hold a mapping of settings (name: ..., "
+                              f"...), not a {type(doc).__name__}")
+
+
+def default_groups() -> dict[str, str]:
+    """The agent and env configs ``configs/config.yaml`` chooses by default."""
+    doc = read_yaml(config_dir() / "config.yaml", "config")
+    out = {}
+    for item in doc.get("defaults", []):
+        if isinstance(item, dict):
+            out.update({k: v for k, v in item.items() if k in HYDRA_GROUPS})
+    return out
 
 
 def _failing_key(message: str) -> str:
-    m = re.search(r"override '([^']+)'", message) or re.search(r"Key '([^']+)'", message)
+    m = (re.search(r"override '([^']+)'", message) or re.search(r"Key '([^']+)'", message)
+         or re.search(r"full_key: (\S+)", message))
     if m:
         return m.group(1)
     return "overrides"
 
 
 def _first_line(message: str) -> str:
-    lines = [ln.strip() for ln in message.strip().splitlines() if ln.strip()]
+    lines = [ln.strip() for ln in message.strip().splitlines()
+             if ln.strip() and not ln.strip().startswith(("full_key:", "object_type="))]
     text = " ".join(lines[:2]) if lines else "invalid config"
     m = re.search(r"Could not override '([^']+)'", text)
     if m:
@@ -252,7 +318,10 @@ def check_run_config(cfg: dict[str, Any]) -> None:
     _positive_int(cfg, "steps")
     ev = cfg.get("eval") or {}
     _positive_int(ev, "every", "eval.every")
-    _positive_int(ev, "episodes", "eval.episodes")
+    episodes = _positive_int(ev, "episodes", "eval.episodes")
+    if episodes > MAX_EVAL_EPISODES:
+        raise ConfigError("eval.episodes", f"must be at most {MAX_EVAL_EPISODES} (got "
+                          f"{episodes}); every evaluation plays them all")
     check_type("eval.deterministic", ev.get("deterministic"), bool)
     _positive_int(cfg, "torch_threads")
     ck = cfg.get("checkpoint") or {}
@@ -261,16 +330,14 @@ def check_run_config(cfg: dict[str, Any]) -> None:
         raise ConfigError("checkpoint.every", f"must be >= 0 (got {every})")
     log = cfg.get("log") or {}
     _positive_int(log, "every", "log.every")
-    sweep = check_type("sweep", cfg.get("sweep"), str)
-    if not SAFE_NAME.match(sweep):
-        raise ConfigError(
-            "sweep", f"must be a folder name of letters, digits, '_', '-', '.' (got {sweep!r})")
+    check_name("sweep", cfg.get("sweep"))
     results_dir = check_type("results_dir", cfg.get("results_dir"), str)
     if not results_dir.strip():
         raise ConfigError("results_dir", "must be a folder path (got an empty string)")
     for group in HYDRA_GROUPS:
         if not isinstance(cfg.get(group), dict):
             raise ConfigError(group, "missing config group")
+        check_name(f"{group}.name", cfg[group].get("name"))
 
 
 def _positive_int(section: dict[str, Any], key: str, field: str | None = None) -> int:

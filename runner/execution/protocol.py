@@ -50,6 +50,7 @@ def run_episode(
         x = np.asarray(obs)[None]
         if normalize is not None:
             x = normalize(x)
+        x.setflags(write=False)  # as in training: act() reads the runner's arrays only
         action = agent.act(x, explore)[0]
         obs, reward, terminated, truncated, _ = env.step(action)
         reward = float(reward)

@@ -61,6 +61,21 @@ def atomic_write_bytes(path: Path, data: bytes) -> None:
     fsync_dir(path.parent)
 
 
+def remove_stale_temp_files(folder: Path) -> list[Path]:
+    """Delete the temporary files that :func:`atomic_write_bytes` leaves when its process is
+    killed mid-write (``.<name>.<random>.tmp``). Call only while holding the lock that
+    guards writes to ``folder``, so no live write is removed."""
+    removed = []
+    for p in Path(folder).glob(".*.tmp"):
+        if p.is_file():
+            try:
+                p.unlink()
+            except OSError:
+                continue  # a read-only folder: the leftovers do no harm
+            removed.append(p)
+    return removed
+
+
 def atomic_write_text(path: Path, text: str) -> None:
     atomic_write_bytes(path, text.encode("utf-8"))
 
@@ -118,11 +133,16 @@ def csv_text(columns: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
     return buf.getvalue()
 
 
-def config_hash(resolved: dict[str, Any]) -> str:
-    """Stable hash of the parts of a resolved config that change what a run computes."""
+def config_digest(resolved: dict[str, Any]) -> str:
+    """SHA-256 (hex) of the parts of a resolved config that change what a run computes."""
     payload = {k: v for k, v in resolved.items() if k not in HASH_EXCLUDED}
     blob = json.dumps(payload, sort_keys=True, separators=(",", ":"), default=str)
-    return hashlib.sha256(blob.encode()).hexdigest()[:10]
+    return hashlib.sha256(blob.encode()).hexdigest()
+
+
+def config_hash(resolved: dict[str, Any]) -> str:
+    """Stable short hash of a resolved config (the end of a run id)."""
+    return config_digest(resolved)[:10]
 
 
 def run_id(resolved: dict[str, Any]) -> str:

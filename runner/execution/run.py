@@ -50,7 +50,8 @@ def _run_json(p: PreparedRun, status: str, started: str, **extra: Any) -> dict[s
         "eval": dict(p.config["eval"]),
         "seeds": p.seeds.as_dict(),
         "random_floor": bool(getattr(p.agent_cls, "random_floor", False)),
-        "provenance": records.provenance(),
+        "provenance": {**records.provenance(), "agent_code_version": p.agent_code_version,
+                       "agent_code": dict(p.agent_code)},
     }
     doc.update(extra)
     return doc
@@ -91,9 +92,17 @@ class RunBusy(RuntimeError):
     """Another process holds this run's lock: it is running elsewhere right now."""
 
 
-def lock_for(run_dir: Path) -> FileLock:
+LOCK_WAIT_S = 2.0  # a status probe holds a run's lock for microseconds: wait that out
+
+
+def lock_for(run_dir: Path, timeout: float = 0) -> FileLock:
     """The run's lock: an OS file lock, so a crashed holder releases it by dying."""
-    return FileLock(str(run_dir / LOCK), timeout=0)
+    return FileLock(str(run_dir / LOCK), timeout=timeout)
+
+
+def binding(p: PreparedRun) -> checkpoints.Binding:
+    """What ties this run's checkpoints to it: run id and the digest of its config."""
+    return checkpoints.Binding(p.run_id, records.config_digest(p.config))
 
 
 def execute(p: PreparedRun, listener: RunListener | None = None,
@@ -101,16 +110,22 @@ def execute(p: PreparedRun, listener: RunListener | None = None,
     """Train, evaluate and record one prepared run; returns its final ``run.json``.
 
     A complete run is skipped; a failed one too unless ``retry_failed``; an interrupted
-    one resumes from its newest usable checkpoint. Raises RunBusy if the run's lock is held.
+    one resumes from its newest usable checkpoint. Raises RunBusy if the run's lock is held
+    (by another run: ``seedsweep status`` only probes it for an instant, which the wait of
+    :data:`LOCK_WAIT_S` covers).
     """
     run_dir = p.run_dir
     run_dir.mkdir(parents=True, exist_ok=True)
-    lock = lock_for(run_dir)
+    lock = lock_for(run_dir, LOCK_WAIT_S)
     try:
         lock.acquire()
     except Timeout:
         raise RunBusy(f"{p.run_id} is running in another process") from None
     try:
+        for folder in (run_dir, run_dir / checkpoints.FOLDER):
+            for leftover in records.remove_stale_temp_files(folder):
+                logger.info("%s: removed %s, left by a write that was cut short", p.run_id,
+                            leftover.name)
         try:
             existing = records.read_run_json(run_dir)
         except records.RecordError as err:  # resume from its checkpoints, if it has any
@@ -125,6 +140,45 @@ def execute(p: PreparedRun, listener: RunListener | None = None,
         lock.release()
 
 
+class _Built:
+    """The live objects of a run: envs, agent and the trainer that drives them."""
+
+    def __init__(self, p: PreparedRun, bar: RunListener, started: str):
+        seed_globals(p.seeds.global_rngs)
+        self.envs = make_train_envs(p.env, p.num_envs, p.vector_mode)
+        self.eval_env = make_eval_env(p.env)
+        agent = p.agent_cls(self.envs.single_observation_space, self.envs.single_action_space,
+                            p.agent_config, p.seeds.agent)
+        ev = p.config["eval"]
+        schedule = Schedule(
+            budget=p.config["steps"], eval_every=ev["every"], eval_episodes=ev["episodes"],
+            deterministic=ev["deterministic"], log_every=p.config["log"]["every"],
+            checkpoint_every=p.config["checkpoint"]["every"],
+        )
+        bound = binding(p)
+        self.trainer = Trainer(
+            agent, self.envs, self.eval_env, schedule, p.seeds.train_env,
+            p.seeds.eval_episodes, bar,
+            on_evaluation=lambda t: _progress_records(p, p.run_dir, t, started),
+            on_checkpoint=lambda t: checkpoints.save(p.run_dir, bound, t.capture(),
+                                                     t.env_steps),
+        )
+        if schedule.checkpoint_every:
+            kind = self.envs.snapshot_kind()
+            self.trainer.snapshot_kind = kind
+            self.envs.track_resets = kind == "reset"
+            if kind == "none":
+                self.trainer.next_checkpoint = math.inf
+                logger.warning("%s: the state of its %d envs cannot be saved (async vector "
+                               "env, or envs whose state is not plain data); no training "
+                               "checkpoints, an interrupted run restarts", p.run_id,
+                               self.envs.num_envs)
+
+    def close(self) -> None:
+        self.envs.close()
+        self.eval_env.close()
+
+
 def _train(p: PreparedRun, bar: RunListener, existing: dict[str, Any] | None) -> dict[str, Any]:
     run_dir = p.run_dir
     (run_dir / "error.log").unlink(missing_ok=True)
@@ -137,31 +191,10 @@ def _train(p: PreparedRun, bar: RunListener, existing: dict[str, Any] | None) ->
     trainer = None
     try:
         torch.set_num_threads(int(p.config["torch_threads"]))
-        seed_globals(p.seeds.global_rngs)
-        envs = make_train_envs(p.env, p.num_envs, p.vector_mode)
-        eval_env = make_eval_env(p.env)
-        agent = p.agent_cls(envs.single_observation_space, envs.single_action_space,
-                            p.agent_config, p.seeds.agent)
-        ev = p.config["eval"]
-        schedule = Schedule(
-            budget=p.config["steps"], eval_every=ev["every"], eval_episodes=ev["episodes"],
-            deterministic=ev["deterministic"], log_every=p.config["log"]["every"],
-            checkpoint_every=p.config["checkpoint"]["every"],
-        )
-        trainer = Trainer(
-            agent, envs, eval_env, schedule, p.seeds.train_env, p.seeds.eval_episodes, bar,
-            on_evaluation=lambda t: _progress_records(p, run_dir, t, started),
-            on_checkpoint=lambda t: checkpoints.save(run_dir, t.capture(), t.env_steps),
-        )
-        if schedule.checkpoint_every:
-            trainer.snapshot_kind = envs.snapshot_kind()
-            envs.track_resets = trainer.snapshot_kind == "reset"
-            if trainer.snapshot_kind == "none":
-                trainer.next_checkpoint = math.inf
-                logger.warning("%s: the state of its %d envs cannot be saved (async vector env, "
-                               "or envs that do not pickle); no training checkpoints, an "
-                               "interrupted run restarts", p.run_id, envs.num_envs)
-        resumed = _resume(trainer, run_dir) if existing else None
+        built, resumed = _resume(p, bar, started) if existing else (None, None)
+        if built is None:
+            built = _Built(p, bar, started)
+        trainer, envs, eval_env = built.trainer, built.envs, built.eval_env
         trainer.tb = SummaryWriter(log_dir=str(run_dir / "tb"),
                                    purge_step=trainer.env_steps if resumed else None)
         loop_start = time.perf_counter()
@@ -174,7 +207,7 @@ def _train(p: PreparedRun, bar: RunListener, existing: dict[str, Any] | None) ->
             envs.close()
             eval_env.close()
         write_records(run_dir, trainer)
-        final = checkpoints.to_bytes(trainer.capture(final=True))
+        final = checkpoints.to_bytes(binding(p), trainer.capture(final=True))
         records.atomic_write_bytes(run_dir / CHECKPOINT, final)
         last = trainer.records.evals[-1].env_step
         finals = [e.ret for e in trainer.records.evals if e.env_step == last]
@@ -192,32 +225,59 @@ def _train(p: PreparedRun, bar: RunListener, existing: dict[str, Any] | None) ->
         doc = _run_json(p, "running", started, env_steps=trainer.env_steps if trainer else 0,
                         wall_s=round(prior_wall + time.perf_counter() - t0, 3),
                         interrupted=records.now_iso())
-        records.atomic_write_json(run_dir / "run.json", doc)
+        _record_quietly(run_dir, lambda: records.atomic_write_json(run_dir / "run.json", doc))
         raise
     except BaseException as err:
         reason = f"{type(err).__name__}: {err}".splitlines()[0]
-        records.atomic_write_text(run_dir / "error.log", traceback.format_exc())
+        trace = traceback.format_exc()
         doc = _run_json(
             p, "failed", started, env_steps=trainer.env_steps if trainer else 0,
             wall_s=round(prior_wall + time.perf_counter() - t0, 3), finished=records.now_iso(),
             error=reason,
         )
-        records.atomic_write_json(run_dir / "run.json", doc)
+
+        def record() -> None:
+            records.atomic_write_text(run_dir / "error.log", trace)
+            records.atomic_write_json(run_dir / "run.json", doc)
+
+        _record_quietly(run_dir, record)
         raise
 
 
-def _resume(trainer: Trainer, run_dir: Path) -> int | None:
-    """Continue from the newest usable checkpoint; returns its env step, or None."""
-    while True:
-        found = checkpoints.load_latest(run_dir)
-        if found is None:
-            return None
-        state, path = found
+def _record_quietly(run_dir: Path, write: Any) -> None:
+    """Record how a run ended; if the folder no longer takes writes (read-only, full disk),
+    say so in one line and let the original exception go on (it is what matters)."""
+    try:
+        write()
+    except OSError as err:
+        logger.warning("%s: cannot record how the run ended (%s: %s)", run_dir.name,
+                       type(err).__name__, err.strerror or err)
+
+
+def _resume(p: PreparedRun, bar: RunListener, started: str
+            ) -> tuple[_Built | None, int | None]:
+    """The run rebuilt from its newest usable checkpoint and its env step, or (None, None).
+
+    Each checkpoint is tried on freshly built objects, so a restore that fails half-way
+    leaves nothing behind; a checkpoint that cannot be restored is deleted with its digest.
+    """
+    bound = binding(p)
+    for path in checkpoints.candidates(p.run_dir):
         try:
-            trainer.restore(state)
-        except Exception as err:  # a checkpoint that cannot be restored is not continued from
-            logger.warning("cannot restore %s (%s); trying an older one", path.name, err)
-            path.unlink(missing_ok=True)
+            state = checkpoints.load(path, bound)
+        except checkpoints.UnusableCheckpoint as err:
+            logger.warning("checkpoint %s unusable (%s); trying an older one", path.name, err)
             continue
-        logger.info("%s: resuming from env step %d", run_dir.name, trainer.env_steps)
-        return trainer.env_steps
+        built = _Built(p, bar, started)
+        try:
+            built.trainer.restore(state)
+        except Exception as err:  # a checkpoint that cannot be restored is not continued from
+            built.close()
+            first = str(err).strip().splitlines()
+            logger.warning("cannot restore %s (%s: %s); deleted it, trying an older one",
+                           path.name, type(err).__name__, first[0] if first else "")
+            checkpoints.discard(path)
+            continue
+        logger.info("%s: resuming from env step %d", p.run_id, built.trainer.env_steps)
+        return built, built.trainer.env_steps
+    return None, None

@@ -42,8 +42,10 @@ def derive_seeds(seed: int, eval_episodes: int, num_envs: int = 1) -> RunSeeds:
     while len(eval_seeds) < eval_episodes:
         n *= 2
         eval_seeds = []
+        taken = set(reserved)  # a set: the draw stays linear in eval_episodes
         for s in _draw31(eval_ss, n):
-            if s not in reserved and s not in eval_seeds:
+            if s not in taken:
+                taken.add(s)
                 eval_seeds.append(s)
                 if len(eval_seeds) == eval_episodes:
                     break

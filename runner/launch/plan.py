@@ -138,6 +138,8 @@ def _agents_of(overrides: Sequence[str]) -> list[str]:
 def plan(overrides: Sequence[str], multirun: bool = False,
          extra_dirs: Sequence[Path] = ()) -> list[PreparedRun]:
     """Expand and check every run of a sweep; raises ConfigError before anything is written."""
+    if not multirun and any(o.split("=", 1)[0] == "suite" for o in overrides):
+        raise ConfigError("suite", "a suite is a sweep over its envs: add -m")
     combos = [c for group in apply_suite(overrides, extra_dirs) for c in expand(group, multirun)]
     if not combos:
         raise ConfigError("overrides", "the sweep is empty")
@@ -148,16 +150,17 @@ def plan(overrides: Sequence[str], multirun: bool = False,
 
 def check_plan(planned: list[PreparedRun]) -> list[PreparedRun]:
     """One folder, no run twice; returns the runs in seed-major order."""
+    for key in ("results_dir", "sweep"):  # first: runs in two folders share run ids
+        values = sorted({str(p.config[key]) for p in planned})
+        if len(values) > 1:
+            raise ConfigError(key, f"one sweep writes to one folder; give one value, not "
+                              f"{', '.join(values)}")
     seen: set[str] = set()
     for p in planned:
         if p.run_id in seen:
             raise ConfigError("seed", f"two sweep points give the same run ({p.run_id}); "
                               "remove duplicate values")
         seen.add(p.run_id)
-    sweep_dirs = {p.run_dir.parent for p in planned}
-    if len(sweep_dirs) > 1:
-        raise ConfigError("sweep", "one sweep writes to one folder; do not sweep over sweep= "
-                          "or results_dir=")
     return interleave(planned)
 
 

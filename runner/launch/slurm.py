@@ -2,17 +2,22 @@
 
 Each job runs :func:`runner.workers.run_job`, so skipping, resuming and per-run locks work
 exactly as with local workers (the results folder must be on a filesystem every node
-sees, as SLURM clusters have). Jobs go out as one array; the launcher then watches the
-run folders for progress and waits for the jobs, with ``--timeout-min`` as a guard.
+sees, as SLURM clusters have). submitit's own job files (pickles) go to a private folder of
+the user's (:func:`jobs_folder`), never into the results folder. Jobs go out as one array;
+the launcher then watches the run folders for progress and waits for the jobs, with
+``--timeout-min`` as a guard.
 """
 
 from __future__ import annotations
 
+import hashlib
 import logging
+import os
 import time
 from pathlib import Path
 
 import submitit
+from seedsweep.configs.checks import ConfigError
 from seedsweep.runner.execution import records
 from seedsweep.runner.launch.display import SweepProgress
 from seedsweep.runner.launch.workers import Outcome, mark_failed, run_job
@@ -23,6 +28,40 @@ logger = logging.getLogger(__name__)
 # shipped agents), settable with --slurm mem_gb=... to fit the cluster's nodes.
 DEFAULTS = {"timeout_min": 24 * 60, "cpus_per_task": 1, "mem_gb": 0.5, "nodes": 1,
             "tasks_per_node": 1}
+
+
+def jobs_root() -> Path:
+    """Where submitit's job files go: ``$SEEDSWEEP_JOBS``, else ``jobs/`` in the cache
+    folder (``$SEEDSWEEP_CACHE`` or ``~/.cache/seedsweep``). On a cluster it must be on a
+    filesystem every node sees, as a home folder usually is."""
+    if os.environ.get("SEEDSWEEP_JOBS"):
+        return Path(os.environ["SEEDSWEEP_JOBS"])
+    cache = Path(os.environ.get("SEEDSWEEP_CACHE", Path.home() / ".cache" / "seedsweep"))
+    return cache / "jobs"
+
+
+def jobs_folder(sweep_folder: Path) -> Path:
+    """A new folder for one launch's job files, in a folder only this user can write.
+
+    submitit's job files are pickles that the jobs and this process load, so they are kept
+    out of the results folder, which others may be able to write: a planted pickle there
+    would run code as the user. The folder is named after the sweep folder (name and a hash
+    of its absolute path) and the launch time.
+    """
+    root = jobs_root()
+    try:
+        root.mkdir(parents=True, exist_ok=True, mode=0o700)
+        info = root.stat()
+    except OSError as err:
+        raise ConfigError("SEEDSWEEP_JOBS", f"cannot make the job folder {root} "
+                          f"({err.strerror or err})") from None
+    if info.st_uid != os.getuid() or info.st_mode & 0o022:
+        raise ConfigError("SEEDSWEEP_JOBS", f"{root} must belong to you and be writable by you "
+                          "only (it holds the pickled jobs): chmod go-w it, or set "
+                          "SEEDSWEEP_JOBS to a private folder every node can see")
+    where = hashlib.sha256(str(sweep_folder.resolve()).encode()).hexdigest()[:8]
+    stamp = records.now_iso().replace(":", "").replace("+", "_")
+    return root / f"{sweep_folder.name}-{where}" / f"{stamp}-{time.monotonic_ns() % 10**6}"
 
 
 def make_executor(folder: Path, cluster: str, params: dict) -> submitit.AutoExecutor:
@@ -43,8 +82,7 @@ def run_submitit(planned, opts) -> Outcome:
     if not planned:
         return outcome
     cluster = "slurm" if opts.launcher == "slurm" else "local"
-    stamp = records.now_iso().replace(":", "").replace("+", "_")
-    job_dir = planned[0].run_dir.parent / "_jobs" / f"{stamp}-{time.monotonic_ns() % 10**6}"
+    job_dir = jobs_folder(planned[0].run_dir.parent)
     executor = make_executor(job_dir, cluster, opts.slurm)
     with executor.batch():
         jobs = [executor.submit(run_job, p.config, opts.retry_failed) for p in planned]

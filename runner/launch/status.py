@@ -48,10 +48,14 @@ def run_states(folder: Path) -> list[dict]:
 
 
 def _locked(run_dir: Path) -> bool:
-    lock = lock_for(run_dir)
+    """Whether a process holds the run's lock. The probe takes the lock without waiting and
+    gives it back at once; a run starting at that instant waits for it
+    (:data:`~seedsweep.runner.execution.run.LOCK_WAIT_S`), so a probe never displaces it. A
+    lock that cannot be opened (a read-only folder) counts as held: nothing is claimed."""
+    lock = lock_for(run_dir, timeout=0)
     try:
         lock.acquire()
-    except Timeout:
+    except (Timeout, OSError):
         return True
     lock.release()
     return False

@@ -43,28 +43,50 @@ def sweep_dir(planned: list[PreparedRun]) -> Path:
     return planned[0].run_dir.parent
 
 
-def check_code_version(folder: Path, allow_mixed: bool) -> None:
-    """Refuse to mix runs of different code versions in one sweep folder."""
+def planned_code(planned: Sequence[PreparedRun]) -> dict[str, str]:
+    """The user's own source files the planned runs load, with their hashes."""
+    out: dict[str, str] = {}
+    for p in planned:
+        out.update(p.agent_code)
+    return out
+
+
+def check_code_version(folder: Path, allow_mixed: bool,
+                       agent_code: dict[str, str] | None = None) -> None:
+    """Refuse to mix runs of different code versions in one sweep folder: seedsweep's own
+    (``code_version``) and each source file of the user's agents and envs the runs load
+    (``agent_code``: the same file with different content in two runs is two versions)."""
     if allow_mixed or not folder.is_dir():
         return
     current = records.code_version()
     found = set()
+    files: dict[str, set[str]] = {}
     manifest = read_manifest(folder)
-    if manifest and manifest.get("code_version"):
-        found.add(manifest["code_version"])
+    docs = [{"provenance": manifest}] if manifest else []
     for run_json in folder.glob("*/run.json"):
         try:
-            doc = records.read_run_json(run_json.parent) or {}
+            docs.append(records.read_run_json(run_json.parent) or {})
         except records.RecordError:
             continue  # status reports it; its version cannot be read
-        version = (doc.get("provenance") or {}).get("code_version")
-        if version:
-            found.add(version)
+    for doc in docs:
+        prov = doc.get("provenance") or {}
+        if prov.get("code_version"):
+            found.add(prov["code_version"])
+        code = prov.get("agent_code")
+        if isinstance(code, dict):
+            for name, digest in code.items():
+                files.setdefault(str(name), set()).add(str(digest))
     others = sorted(found - {current})
     if others:
         raise ConfigError(
             "sweep", f"{folder} holds runs made by code version {others[0]} and this is "
             f"{current}; use another sweep=NAME, or pass --allow-mixed-code to add to it")
+    for name, digest in sorted((agent_code or {}).items()):
+        older = sorted(files.get(name, set()) - {digest})
+        if older:
+            raise ConfigError(
+                "sweep", f"{folder} holds runs made with another version of {name} ({older[0]}; "
+                f"now {digest}); use another sweep=NAME, or pass --allow-mixed-code to add to it")
 
 
 def read_manifest(folder: Path) -> dict[str, Any] | None:
@@ -77,10 +99,20 @@ def read_manifest(folder: Path) -> dict[str, Any] | None:
 
 def write_manifest(folder: Path, planned: list[PreparedRun], overrides: Sequence[str]) -> None:
     """Add this launch's runs to ``sweep.json`` (under a lock: sweeps may share a folder)."""
-    folder.mkdir(parents=True, exist_ok=True)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        _write_manifest(folder, planned, overrides)
+    except OSError as err:
+        raise ConfigError("results_dir", f"cannot write the sweep folder {folder} "
+                          f"({type(err).__name__}: {err.strerror or err})") from None
+
+
+def _write_manifest(folder: Path, planned: list[PreparedRun], overrides: Sequence[str]) -> None:
     with FileLock(str(folder / ".sweep.lock"), timeout=60):
+        records.remove_stale_temp_files(folder)  # e.g. a sweep.json write cut short
         doc = read_manifest(folder) or {"runs": {}, "launches": []}
         doc["code_version"] = records.code_version()
+        doc["agent_code"] = {**(doc.get("agent_code") or {}), **planned_code(planned)}
         for p in planned:
             doc["runs"][p.run_id] = {"agent": p.config["agent"]["name"], "env": p.env.id,
                                      "env_config": p.env.name, "seed": p.config["seed"],
@@ -110,7 +142,7 @@ def classify(planned: list[PreparedRun], retry_failed: bool) -> tuple[list, list
 def run_sweep(planned: list[PreparedRun], overrides: Sequence[str], opts: SweepOptions) -> int:
     """Run what is left of a sweep; exit status 0 if every run is complete, else 1."""
     folder = sweep_dir(planned)
-    check_code_version(folder, opts.allow_mixed_code)
+    check_code_version(folder, opts.allow_mixed_code, planned_code(planned))
     to_run, complete, failed = classify(planned, opts.retry_failed)
     workers = opts.workers or default_workers()
     logger.info("sweep %s: %d runs — %d complete, %d failed (kept; --retry-failed reruns them), "

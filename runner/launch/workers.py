@@ -7,6 +7,7 @@ that run failed and goes on with the others.
 
 from __future__ import annotations
 
+import logging
 import multiprocessing as mp
 import os
 import queue as queue_mod
@@ -23,6 +24,8 @@ from seedsweep.runner.execution.progress import RunListener
 from seedsweep.runner.execution.run import RunBusy, execute, interrupt_on_sigterm
 from seedsweep.runner.launch import estimate
 from seedsweep.runner.launch.display import QueueProgress, RunProgress, SweepProgress
+
+logger = logging.getLogger(__name__)
 
 EXIT_BUSY = 3
 
@@ -168,12 +171,20 @@ def _death_reason(exitcode: int | None) -> str:
     return f"worker process exited with code {exitcode} without recording a result"
 
 
-def mark_failed(p: PreparedRun, reason: str) -> None:
-    """Record the failure of a run whose own process could not (it died)."""
+def mark_failed(p: PreparedRun, reason: str) -> bool:
+    """Record the failure of a run whose own process could not (it died). A folder that no
+    longer takes writes (made read-only, a full disk) is one warning line, and the sweep
+    goes on to its summary; what is on disk stays as it was. Returns whether it recorded."""
     try:
         doc = records.read_run_json(p.run_dir) or {"run_id": p.run_id}
     except records.RecordError:
         doc = {"run_id": p.run_id}
     doc.update(status="failed", error=reason, finished=records.now_iso())
-    records.atomic_write_json(p.run_dir / "run.json", doc)
-    records.atomic_write_text(p.run_dir / "error.log", reason + "\n")
+    try:
+        records.atomic_write_text(p.run_dir / "error.log", reason + "\n")
+        records.atomic_write_json(p.run_dir / "run.json", doc)
+    except OSError as err:
+        logger.warning("%s: cannot record its failure in %s (%s: %s)", p.run_id, p.run_dir,
+                       type(err).__name__, err.strerror or err)
+        return False
+    return True
