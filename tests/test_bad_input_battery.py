@@ -135,7 +135,7 @@ CASES: list[tuple[list[str], str, str]] = [
     (["run", "results_dir={results}", "steps=-5"], "steps", "must be a positive integer"),
     ([*RUN, "agent.lr=fast"], "agent.lr", "expected a number"),
     ([*RUN, "agent.lr=inf"], "agent.lr", "finite"),
-    ([*RUN, "agent.lr=nan"], "agent.lr", "finite"),
+    ([*RUN, "agent.lr=nan"], "agent.lr", "must be > 0 (got nan)"),  # the range check speaks first
     ([*RUN, "agent.lr=0"], "agent.lr", "must be > 0"),
     ([*RUN, "agent.lr=-0.1"], "agent.lr", "must be > 0"),
     ([*RUN, "agent.double_q=maybe"], "agent.double_q", "expected true or false"),
