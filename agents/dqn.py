@@ -2,8 +2,10 @@
 
 Replay buffer, target network (hard copies every ``target_period_steps`` env steps, or
 Polyak averaging), linear ε-greedy, Huber loss, Adam, gradient-norm clipping; Double DQN
-targets (van Hasselt et al. 2016) with ``double_q: true``. Only the terminated flag stops
-bootstrapping: a time-limit truncation still bootstraps from the final observation.
+targets (van Hasselt et al. 2016) with ``double_q: true``. With ``lr_decay_steps`` set, the
+learning rate falls linearly from ``lr`` to ``lr_end`` over that many env steps. Only the
+terminated flag stops bootstrapping: a time-limit truncation still bootstraps from the final
+observation.
 """
 
 from __future__ import annotations
@@ -29,6 +31,8 @@ class DQN(Agent):
     class Config:
         gamma: float = 0.99
         lr: float = 5e-4
+        lr_end: float = 0.0
+        lr_decay_steps: int | None = None
         batch_size: int = 64
         replay_capacity: int = 50_000
         replay_warmup_steps: int = 1_000
@@ -45,20 +49,26 @@ class DQN(Agent):
 
         def __post_init__(self):
             require("lr", self.lr, self.lr > 0, "> 0")
+            require("lr_end", self.lr_end, 0 <= self.lr_end <= self.lr, "in [0, lr]")
+            require("lr_decay_steps", self.lr_decay_steps,
+                    self.lr_decay_steps is None or self.lr_decay_steps >= 1, "null or >= 1")
             require("batch_size", self.batch_size, self.batch_size >= 1, ">= 1")
             require("replay_capacity", self.replay_capacity, self.replay_capacity >= 1, ">= 1")
-            require("replay_warmup_steps", self.replay_warmup_steps, self.replay_warmup_steps >= 0, ">= 0")
-            require("update_period_steps", self.update_period_steps, self.update_period_steps >= 1, ">= 1")
+            require("replay_warmup_steps", self.replay_warmup_steps,
+                    self.replay_warmup_steps >= 0, ">= 0")
+            require("update_period_steps", self.update_period_steps,
+                    self.update_period_steps >= 1, ">= 1")
             require("target_period_steps", self.target_period_steps,
                     self.target_period_steps >= 1, ">= 1")
-            require("target_blend", self.target_blend, self.target_blend is None or 0 < self.target_blend <= 1,
-                    "null or in (0, 1]")
+            require("target_blend", self.target_blend,
+                    self.target_blend is None or 0 < self.target_blend <= 1, "null or in (0, 1]")
             require("hidden", self.hidden, len(self.hidden) > 0 and min(self.hidden) >= 1,
                     "a non-empty list of positive layer widths")
             for name in ("epsilon_start", "epsilon_end"):
                 v = getattr(self, name)
                 require(name, v, 0 <= v <= 1, "in [0, 1]")
-            require("epsilon_decay_steps", self.epsilon_decay_steps, self.epsilon_decay_steps >= 0, ">= 0")
+            require("epsilon_decay_steps", self.epsilon_decay_steps,
+                    self.epsilon_decay_steps >= 0, ">= 0")
             require("grad_clip_norm", self.grad_clip_norm,
                     self.grad_clip_norm is None or self.grad_clip_norm > 0, "null or > 0")
             require("num_envs", self.num_envs, self.num_envs >= 1, ">= 1")
@@ -80,6 +90,8 @@ class DQN(Agent):
         self._grads = self.q_numpy.grad_views(self.q)  # views into self.flat.grad
         self.buffer = ReplayBuffer(c.replay_capacity, (self.obs_dim,))
         self.epsilon = LinearSchedule(c.epsilon_start, c.epsilon_end, c.epsilon_decay_steps)
+        self.lr_schedule = (None if c.lr_decay_steps is None
+                            else LinearSchedule(c.lr, c.lr_end, c.lr_decay_steps))
         self.env_steps = 0
         self.updates = 0
         self._train_credit = 0
@@ -121,11 +133,14 @@ class DQN(Agent):
         while self._train_credit >= c.update_period_steps:
             self._train_credit -= c.update_period_steps
             metrics["loss"] = self._update()
-        if c.target_blend is None and self.env_steps - self._last_target_copy >= c.target_period_steps:
+        due = self.env_steps - self._last_target_copy >= c.target_period_steps
+        if c.target_blend is None and due:
             self.target.load_state_dict(self.q.state_dict())
             self._last_target_copy = self.env_steps
         if metrics:
             metrics["epsilon"] = self.epsilon(self.env_steps)
+            if self.lr_schedule is not None:
+                metrics["lr"] = self.opt.param_groups[0]["lr"]
         return metrics
 
     def _update(self) -> float:
@@ -150,6 +165,8 @@ class DQN(Agent):
         grad_q[rows, b["actions"]] = np.clip(error, -1.0, 1.0) / len(error)
         self.q_numpy.backward(inputs, grad_q, self._grads)
         self.flat.clip_grad_norm_(c.grad_clip_norm)
+        if self.lr_schedule is not None:
+            self.opt.param_groups[0]["lr"] = self.lr_schedule(self.env_steps)
         self.opt.step()
         self.updates += 1
         if c.target_blend is not None:

@@ -3,7 +3,9 @@
 Where an episode ends, the batch layer returns the episode's final observation as
 ``next_obs`` (for bootstrapping on truncation) and the reset observation as ``obs`` to act
 on next. It also keeps the raw return and length of every training episode, applies the
-training-only reward transforms and the shared observation normaliser.
+training-only reward transforms and the shared observation normaliser, whose
+statistics count every observation acted on (the first reset's, then each step's ``obs``,
+reset observations included) once and final observations not at all.
 
 One env takes a lean path of its own: gymnasium's vector env costs more per step than a
 cheap env (CartPole) itself, which would dominate the runner's overhead.
@@ -145,7 +147,10 @@ class TrainEnvs:
                     rewards = rewards * p["scale"]
             rewards.setflags(write=False)
         if self.normalizer is not None:
-            self.normalizer.update(next_obs)
+            # Count each observation acted on exactly once: this step's ``obs`` (the reset
+            # observation where an episode ended). A final observation is only bootstrapped
+            # from, never acted on, so it is not counted.
+            self.normalizer.update(obs)
             if obs is not next_obs:
                 obs = _frozen(self.normalizer(obs))
                 next_obs = _frozen(self.normalizer(next_obs))

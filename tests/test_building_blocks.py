@@ -156,3 +156,38 @@ def test_dqn_update_gradient_is_the_huber_loss_gradient():
     assert loss == pytest.approx(float(ref_loss.detach()), rel=1e-5)
     for p, r in zip(agent.q.parameters(), ref.parameters(), strict=True):
         torch.testing.assert_close(p.grad, r.grad, rtol=1e-4, atol=1e-6)
+
+
+def test_dqn_lr_decay_follows_torch_linear_lr():
+    """``lr_decay_steps``: the Adam learning rate at each update equals torch's
+    ``optim.lr_scheduler.LinearLR`` (start factor 1, end factor lr_end / lr, total_iters =
+    lr_decay_steps) stepped once per env step; unset, the rate stays at ``lr``."""
+    from gymnasium import spaces
+
+    from seedsweep.agents.base import Step
+    from seedsweep.agents.dqn import DQN
+
+    lr, lr_end, decay = 1e-3, 2e-4, 30
+    obs_space, act_space = spaces.Box(-1, 1, (4,), np.float32), spaces.Discrete(2)
+    decayed = DQN(obs_space, act_space, DQN.Config(lr=lr, lr_end=lr_end, lr_decay_steps=decay,
+                                                   replay_warmup_steps=5, batch_size=8), seed=0)
+    constant = DQN(obs_space, act_space, DQN.Config(lr=lr, replay_warmup_steps=5, batch_size=8),
+                   seed=0)
+    ref_opt = torch.optim.SGD([torch.zeros(1, requires_grad=True)], lr=lr)
+    ref = torch.optim.lr_scheduler.LinearLR(ref_opt, start_factor=1.0, end_factor=lr_end / lr,
+                                            total_iters=decay)
+    rng = np.random.default_rng(1)
+    seen = []
+    for t in range(1, 46):
+        ref_opt.step()
+        ref.step()  # now at iteration t: the rate for env step t
+        o = rng.normal(size=(1, 4)).astype(np.float32)
+        step = Step(o, np.array([t % 2]), np.array([1.0]), o, np.array([False]),
+                    np.array([False]), t)
+        decayed.observe(step)
+        constant.observe(step)
+        if t >= 5:  # updates start at the warm-up
+            seen.append(decayed.opt.param_groups[0]["lr"])
+            assert seen[-1] == pytest.approx(ref_opt.param_groups[0]["lr"], rel=1e-9)
+            assert constant.opt.param_groups[0]["lr"] == lr
+    assert seen[0] > seen[10] > seen[-1] == pytest.approx(lr_end, rel=1e-9)

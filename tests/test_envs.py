@@ -74,6 +74,37 @@ def test_normaliser_updates_in_training_and_is_shared_frozen_in_eval():
     np.testing.assert_allclose(y, expected, rtol=1e-6)
 
 
+@pytest.mark.parametrize("num_envs", [1, 2])
+def test_normaliser_counts_exactly_the_observations_acted_on(num_envs):
+    # Reference: plain gymnasium CartPole-v1 envs stepped by hand with the same seeds and
+    # actions (vector rule: env i reset with seed + i, later resets unseeded, same-step
+    # autoreset). The statistics must equal numpy's mean and population variance of the
+    # observations an agent acts on: every reset observation, and each step's observation,
+    # where an episode's final observation is replaced by the next reset's.
+    limit = 5  # short episodes: many resets, so counting final observations would show
+    s = spec(wrappers=[{"name": "time_limit", "max_episode_steps": limit},
+                       {"name": "normalize_obs"}])
+    train = make_train_envs(s, num_envs)
+    train.reset(seed=3)
+    refs = [gym.make("CartPole-v1", max_episode_steps=limit) for _ in range(num_envs)]
+    acted = [[np.asarray(e.reset(seed=3 + i)[0], np.float64)] for i, e in enumerate(refs)]
+    for t in range(199):
+        actions = np.array([(t + i) % 2 for i in range(num_envs)])
+        train.step(actions)
+        for i, e in enumerate(refs):
+            obs, _, term, trunc, _ = e.step(int(actions[i]))
+            if term or trunc:
+                obs, _ = e.reset()
+            acted[i].append(np.asarray(obs, np.float64))
+    x = np.concatenate([np.stack(a) for a in acted])
+    rms = train.normalizer.rms
+    # gymnasium's RunningMeanStd starts from count 1e-4, mean 0, var 1 (its source): that prior
+    # moves the variance by about 1e-4 / len(x) <= 5e-7, inside atol
+    assert rms.count == pytest.approx(len(x) + 1e-4)
+    np.testing.assert_allclose(rms.mean, x.mean(axis=0), rtol=1e-5, atol=1e-6)
+    np.testing.assert_allclose(rms.var, x.var(axis=0), rtol=1e-5, atol=1e-6)
+
+
 def test_vector_training_envs_return_final_observation_on_reset():
     s = spec(wrappers=[{"name": "time_limit", "max_episode_steps": 3}])
     train = make_train_envs(s, 2)

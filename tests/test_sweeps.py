@@ -91,7 +91,11 @@ def _kill_after(args, folder: Path, checkpoints: int, sig=signal.SIGKILL) -> int
     # box2d envs do not pickle: snapshots at episode ends (short episodes: frequent ones)
     ["agent=dqn", "env=lunarlander", "env.max_episode_steps=150", "agent.replay_warmup_steps=200"],
     ["agent=actor_critic", "env=cartpole"],  # 8 envs in gymnasium's sync vector env
-], ids=["pickled-envs", "reset-snapshots", "vector-envs"])
+    # the observation normaliser's statistics are saved and restored with the envs
+    ["agent=reinforce", "env=mountaincar_continuous"],
+    ["agent=actor_critic", "env=mountaincar_continuous"],
+], ids=["pickled-envs", "reset-snapshots", "vector-envs", "normalized-obs-one-env",
+        "normalized-obs-vector-envs"])
 def test_sigkilled_run_resumes_to_byte_identical_eval_csv(tmp_path, extra):
     base = ["run", *extra, "steps=3000", "eval.every=500", "eval.episodes=2",
             "checkpoint.every=400", "--progress=quiet"]
