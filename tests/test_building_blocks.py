@@ -163,7 +163,6 @@ def test_dqn_lr_decay_follows_torch_linear_lr():
     ``optim.lr_scheduler.LinearLR`` (start factor 1, end factor lr_end / lr, total_iters =
     lr_decay_steps) stepped once per env step; unset, the rate stays at ``lr``."""
     from gymnasium import spaces
-
     from seedsweep.agents.base import Step
     from seedsweep.agents.dqn import DQN
 
