@@ -28,13 +28,20 @@ from seedsweep.configs.checks import ConfigError, check_type, suggest, unknown_k
 
 TOP_KEYS = {
     "agent", "env", "seed", "steps", "eval", "sweep", "results_dir", "torch_threads",
-    "checkpoint", "log",
+    "checkpoint", "log", "tuning",
 }
+# Seeds from here up belong to tuning trials (``tuning: true``), the seeds below to every
+# other run: a configuration chosen on tuning seeds is never judged on the same seeds.
+TUNING_SEED_BASE = 1_000_000
 HYDRA_GROUPS = ("agent", "env")  # config folders that hydra composes
 PLAN_GROUPS = ("suite", "plan")  # config folders read by the launch layer only
 # Sections of an agent YAML that are not hyperparameters: settings per env config
 # (applied under the command line's own overrides) and the search space of ``tune``.
 AGENT_SECTIONS = ("per_env", "search")
+# Keys of an agent section that are records, not hyperparameters: the agent's name, its class
+# and, in a configuration chosen by ``tune``, how it was tuned (kept in the run's config, so it
+# is part of the run id and of config.yaml).
+AGENT_RECORDS = ("name", "entry", "tuned")
 SECTION_KEYS = {"eval": ("deterministic", "episodes", "every"), "checkpoint": ("every",),
                 "log": ("every",)}
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_][A-Za-z0-9_.-]*$")
@@ -188,7 +195,7 @@ def apply_per_env(resolved: dict[str, Any], overrides: Sequence[str]) -> dict[st
     given = {o.get_key_element().lstrip("+~") for o in parse_overrides(
         [o for o in overrides if not o.startswith("hydra.")])}
     for key, value in settings.items():
-        if key in ("name", "entry", *AGENT_SECTIONS):
+        if key in (*AGENT_RECORDS, *AGENT_SECTIONS):
             raise ConfigError(f"agent.per_env.{env_name}.{key}", "only hyperparameters can "
                               "differ by env")
         if f"agent.{key}" not in given:
@@ -249,6 +256,13 @@ def check_run_config(cfg: dict[str, Any]) -> None:
     seed = check_type("seed", cfg.get("seed"), int)
     if seed < 0:
         raise ConfigError("seed", f"must be a non-negative integer (got {seed})")
+    tuning = check_type("tuning", cfg.get("tuning", False), bool)
+    if tuning and seed < TUNING_SEED_BASE:
+        raise ConfigError("seed", f"tuning trials use seeds >= {TUNING_SEED_BASE} (got {seed}); "
+                          "the seeds below are for evaluation runs")
+    if not tuning and seed >= TUNING_SEED_BASE:
+        raise ConfigError("seed", f"seeds >= {TUNING_SEED_BASE} are reserved for tuning trials "
+                          f"(got {seed}); evaluation runs use seeds below {TUNING_SEED_BASE}")
     _positive_int(cfg, "steps")
     ev = cfg.get("eval") or {}
     _positive_int(ev, "every", "eval.every")
