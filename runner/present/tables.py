@@ -107,3 +107,30 @@ def print_plan(doc: dict[str, Any]) -> None:
     console.print("Pilot samples stand in for the score distributions: with few pilot runs "
                   "the estimate is rough; rerun it as seeds accumulate.", markup=False)
 
+
+
+def print_tuning(doc: dict[str, Any], agents: list[str], chosen: dict[str, Path]) -> None:
+    """The study's result per agent: trials complete of the budget, best objective, the
+    chosen values and where the chosen YAML is."""
+    console = Console(file=sys.stdout, width=140)
+    b = doc["budget"]
+    table = Table(title=Text(f"study {doc['study']}: {b['trials']} trials × {b['steps']} steps "
+                             f"× {len(b['envs'])} envs ({', '.join(b['envs'])}) × "
+                             f"{b['seeds_per_env']} tuning seeds per agent; objective: IQM "
+                             "of normalised final scores"))
+    for col in ("agent", "complete", "failed", "best objective", "best trial", "chosen values"):
+        table.add_column(Text(col))
+    for name, s in doc["summary"].items():
+        best = s["best"]
+        values = ", ".join(f"{k}={_value(v)}" for k, v in (best or {}).get("values", {}).items())
+        table.add_row(name, f"{s['complete']}/{s['trials']}", str(s["failed"]),
+                      "-" if best is None else f"{best['objective']:.4f}",
+                      "-" if best is None else str(best["trial"]), values or "-")
+    console.print(table, markup=False)
+    for name in agents:
+        if name in chosen:
+            console.print(f"{name}: chosen configuration in {chosen[name]}", markup=False)
+
+
+def _value(v: Any) -> str:
+    return f"{v:.4g}" if isinstance(v, float) else str(v)
