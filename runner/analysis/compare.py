@@ -17,7 +17,7 @@ from typing import Any
 
 import numpy as np
 from seedsweep.configs.checks import ConfigError
-from seedsweep.runner.analysis import power, scores, selection, stats
+from seedsweep.runner.analysis import power, scores, selection, stats, tuning
 from seedsweep.runner.analysis.runs import Problem, Sweep, load_sweep
 from seedsweep.runner.analysis.stats import keyed_rng
 
@@ -176,6 +176,7 @@ def load_cells(opts: argparse.Namespace, allow_few: bool, pilot: bool = False) -
     """Load and check the sweep for a candidate and its baselines (refusals as ConfigError).
     ``pilot``: the cells are pilot runs for plan-seeds, which always needs 2 per cell."""
     sweep = load_sweep(Path(opts.sweep))
+    tuning.check_evaluation_runs(sweep.runs, Path(opts.sweep))
     cand, baselines = selection.select_pair_agents(sweep, opts.candidate, opts.baseline)
     agents = [cand, *baselines]
     envs = selection.select_envs(sweep, agents, opts.envs)
@@ -222,6 +223,8 @@ def compute_comparison(opts: argparse.Namespace) -> dict[str, Any]:
                 for e, v in zip(cells.envs, raw[a], strict=True)] for a in agents}
     comparisons = [compare_pair(cells.candidate, b, cells.envs, norm, raw, opts.resamples,
                                 opts.confidence, opts.seed) for b in cells.baselines]
+    tuned = {a: tuning.tuning_of([r for e in cells.envs for r in cells.by_cell[(a, e)]])
+             for a in agents}
     return {
         "sweep": cells.sweep.name,
         "candidate": cells.candidate,
@@ -229,6 +232,8 @@ def compute_comparison(opts: argparse.Namespace) -> dict[str, Any]:
         "envs": cells.envs,
         "verdict_rule": VERDICT_RULE,
         "comparisons": comparisons,
+        "tuning": tuned,
+        "tuning_note": tuning.tuning_note(cells.candidate, tuned),
         "references": {e: references[e].as_dict() for e in cells.envs},
         "evaluation": cells.eval_settings,
         "bootstrap": {"resamples": opts.resamples, "confidence": opts.confidence,

@@ -11,7 +11,10 @@ read by the launch layer, never selected by hydra (no top-level key shares their
 
 from __future__ import annotations
 
+import hashlib
+import os
 import re
+import tempfile
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -146,13 +149,13 @@ def compose(overrides: Sequence[str], extra_dirs: Sequence[Path | str] = ()) -> 
     """
     _check_groups(overrides, extra_dirs)
     overrides = list(overrides)
-    search = []
-    if extra_dirs:
-        roots = ",".join(f"file://{d.resolve()}" for d in config_roots(extra_dirs)[1:])
-        search.append(f"hydra.searchpath=[{roots}]")
+    # every config folder on hydra's search path, where the first entry that has a file wins:
+    # the last --config-dir first, the shipped configs last (see _primary_dir)
+    roots = ",".join(f"file://{d.resolve()}" for d in reversed(config_roots(extra_dirs)))
+    search = [f"hydra.searchpath=[{roots}]"]
     while True:
         try:
-            with initialize_config_dir(config_dir=str(config_dir()), version_base=None):
+            with initialize_config_dir(config_dir=str(_primary_dir()), version_base=None):
                 cfg = hydra_compose(config_name="config", overrides=overrides + search)
             resolved = OmegaConf.to_container(cfg, resolve=True)
             break
@@ -162,6 +165,27 @@ def compose(overrides: Sequence[str], extra_dirs: Sequence[Path | str] = ()) -> 
                 raise ConfigError(_failing_key(str(err)), _first_line(str(err))) from None
             overrides = added
     return apply_per_env(resolved, overrides)
+
+
+def _primary_dir() -> Path:
+    """hydra's primary config folder, holding only a copy of the shipped config.yaml.
+
+    hydra lets its primary folder win over every search-path entry; were the shipped folder
+    primary, its agent/dqn.yaml would shadow a dqn.yaml under --config-dir (such as a
+    configuration chosen by ``seedsweep tune``). With the groups only on the search path, the
+    last --config-dir that has a file wins, as :func:`group_file` says. The folder is keyed by
+    the file's content and shared by every process of this user (written atomically)."""
+    text = (config_dir() / "config.yaml").read_bytes()
+    key = hashlib.sha256(text).hexdigest()[:16]
+    folder = Path(tempfile.gettempdir()) / f"seedsweep-primary-{os.getuid()}-{key}"
+    target = folder / "config.yaml"
+    if not (target.is_file() and target.read_bytes() == text):
+        folder.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(dir=folder, prefix=".config.", suffix=".tmp")
+        with os.fdopen(fd, "wb") as f:
+            f.write(text)
+        os.replace(tmp, target)
+    return folder
 
 
 def _as_addition(message: str, overrides: list[str]) -> list[str] | None:

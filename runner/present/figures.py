@@ -134,6 +134,39 @@ def learning_curves(data: Any, colors: dict) -> Figure:
     return fig
 
 
+def sensitivity(data: Any, colors: dict) -> Figure:
+    """Per swept key: the IQM of normalised scores with its interval at each value, and each
+    run's score as a dot (a log axis for numeric keys spanning more than 10x)."""
+    tables = data.sensitivity
+    cols = min(3, len(tables))
+    rows = math.ceil(len(tables) / cols)
+    fig = Figure(figsize=(4.2 * cols, 3.2 * rows), layout="constrained")
+    axes = fig.subplots(rows, cols, squeeze=False)
+    for k, ax in enumerate(axes.flat):
+        if k >= len(tables):
+            ax.set_visible(False)
+            continue
+        t = tables[k]
+        color = colors.get(t.agent) or next((c for a, c in colors.items()
+                                            if a.split("[")[0] == t.agent), "C0")
+        x = [float(r.value) for r in t.rows] if t.numeric else list(range(len(t.rows)))
+        for xi, r in zip(x, t.rows, strict=True):
+            ax.plot([xi] * len(r.scores), r.scores, "o", color=color, alpha=0.35, ms=3, lw=0)
+            ax.plot([xi, xi], [r.iqm.low, r.iqm.high], color=color, lw=4, alpha=0.6,
+                    solid_capstyle="butt")
+        ax.plot(x, [r.iqm.point for r in t.rows], "-", marker="_", color="black", ms=12,
+                lw=0.8 if t.numeric and not t.marginal else 0)
+        if t.log_axis:
+            ax.set_xscale("log")
+        if not t.numeric:
+            ax.set_xticks(x, [r.text for r in t.rows], rotation=30, ha="right")
+        ax.set_title(t.title, fontsize=8)
+        ax.set_xlabel(t.key)
+        ax.set_ylabel("normalised score (IQM, runs)")
+        ax.grid(alpha=0.3)
+    return fig
+
+
 FIGURES = {
     "aggregate_intervals": aggregate_intervals,
     "probability_of_improvement": improvement,
@@ -150,4 +183,6 @@ def all_figures(data: Any) -> dict[str, tuple[bytes, bytes]]:
     with rc_context(RC):
         for name, build in FIGURES.items():
             out[name] = _save(build(data, colors))
+        if getattr(data, "sensitivity", None):
+            out["sensitivity"] = _save(sensitivity(data, colors))
     return out

@@ -14,6 +14,7 @@ from collections.abc import Iterable, Sequence
 from typing import Any
 
 from seedsweep.runner.analysis.stats import STATISTICS
+from seedsweep.runner.analysis.tuning import budget_text
 
 STYLE = """
 body{font-family:system-ui,sans-serif;margin:2em auto;max-width:1100px;color:#222}
@@ -88,6 +89,7 @@ def render(data: Any, summary: dict[str, Any], figures: dict[str, tuple[bytes, b
                [[a, summary["agents"][a]["n_runs"]]
                 + [_iv(summary["agents"][a][s]) for s in STATISTICS] for a in data.agents]),
         _figure(figures, "aggregate_intervals", "aggregate intervals per agent"),
+        tuning_section(summary, figures),
         "<h2>Probability of improvement</h2>",
         "<p>P(X &gt; Y): the probability that a run of X on a random env scores higher than a "
         "run of Y (Mann-Whitney U / (n m) per env, ties count 1/2, averaged over envs).</p>",
@@ -227,10 +229,40 @@ def _comparison_body(doc: dict[str, Any]) -> str:
         f"<p>Verdict rule: {esc(doc['verdict_rule'])}</p>",
         _table(["baseline", "IQM difference", f"P({cand} > baseline)", "verdict", "why"],
                rows, 1),
+        tuning_section({"tuning_note": doc.get("tuning_note")}, {}),
         "<h3>Per env: IQM of raw scores over seeds (seeds)</h3>",
         _table(["env", "baseline", cand, "baseline score", f"P({cand} > baseline)"],
                env_rows, 2),
     ])
+
+
+def tuning_section(summary: dict[str, Any], figures: dict[str, tuple[bytes, bytes]]) -> str:
+    """Tuning as an HTML fragment: per agent its tuning budget ("tuned: T trials × S steps × E
+    envs" or "not tuned"), a comparison's ``tuning_note`` as a warning, and the sensitivity
+    tables and figure of every swept key. Empty when there is nothing to say."""
+    parts = []
+    agents = summary.get("agents") or {}
+    if agents:
+        parts += ["<h2>Tuning</h2>", _table(["agent", "tuning"], [
+            [a, budget_text(s.get("tuning"))] for a, s in agents.items()])]
+    if summary.get("tuning_note"):
+        parts.append(f"<p class='bad'><strong>Warning:</strong> {esc(summary['tuning_note'])}"
+                     "</p>")
+    tables = summary.get("sensitivity") or []
+    if tables:
+        parts.append("<h2>Sensitivity</h2><p>Per swept key: the IQM of normalised scores over "
+                     "the runs at each value (pooled over envs and seeds), its stratified "
+                     "bootstrap interval, and the run count. Tuning trials vary every searched "
+                     "key at once: their tables are marginal (the other keys vary).</p>")
+        for t in tables:
+            fixed = ",".join(f"{k}={v}" for k, v in t["fixed"].items())
+            title = f"{t['agent']}{f' [{fixed}]' if fixed else ''}: {t['key']}" + (
+                " (tuning trials: other keys vary)" if t["marginal"] else "")
+            parts += [f"<h3>{esc(title)}</h3>", _table(
+                [t["key"], "IQM [interval]", "runs"],
+                [[json.dumps(r["value"]), _iv(r), r["n_runs"]] for r in t["rows"]])]
+        parts.append(_figure(figures, "sensitivity", "score against each swept key"))
+    return "\n".join(parts)
 
 
 def _raw(d: dict[str, float]) -> str:

@@ -11,6 +11,7 @@ from rich.table import Table
 from rich.text import Text  # titles and headers as Text: agent labels contain [...]
 from seedsweep.runner.analysis import stats
 from seedsweep.runner.analysis.report import ReportData
+from seedsweep.runner.analysis.tuning import budget_text
 
 
 def print_summary(data: ReportData, target: Path, comparison: Any = None) -> None:
@@ -24,6 +25,11 @@ def print_summary(data: ReportData, target: Path, comparison: Any = None) -> Non
         agg = data.aggregates[a]
         table.add_row(a, str(data.n_runs[a]), *(_fmt_iv(agg[k]) for k in stats.STATISTICS))
     console.print(table, markup=False)
+    if any(data.tuning.values()):
+        for a in data.agents:
+            console.print(f"{a}: {budget_text(data.tuning.get(a))}", markup=False)
+    for t in data.sensitivity:
+        print_sensitivity(console, t)
     refs = Table(title="references per env")
     for col in ("env", "random (CI)", "reference", "source"):
         refs.add_column(col)
@@ -39,9 +45,21 @@ def print_summary(data: ReportData, target: Path, comparison: Any = None) -> Non
         for c in comparison.doc["comparisons"]:
             console.print(f"{comparison.doc['candidate']} vs {c['baseline']}: {c['verdict']}",
                           markup=False)
+        if comparison.doc.get("tuning_note"):
+            console.print(f"warning: {comparison.doc['tuning_note']}", markup=False)
     if comparison is not None and comparison.note:
         console.print(comparison.note, markup=False)
     console.print(f"report: {target}", markup=False)
+
+
+def print_sensitivity(console: Console, t: Any) -> None:
+    """One swept key: IQM of normalised scores [interval] and runs at each value."""
+    table = Table(title=Text(f"sensitivity of {t.title}: IQM of normalised scores"))
+    for col in (t.key, "IQM [interval]", "runs"):
+        table.add_column(Text(col))
+    for r in t.rows:
+        table.add_row(r.text, _fmt_iv(r.iqm), str(r.n_runs))
+    console.print(table, markup=False)
 
 
 def _fmt_iv(iv: stats.Interval) -> str:
@@ -71,6 +89,10 @@ def print_comparison(doc: dict[str, Any], target: Path) -> None:
     console.print(envs, markup=False)
     for c in doc["comparisons"]:
         console.print(f"vs {c['baseline']}: {c['verdict']}: {c['reason']}", markup=False)
+    for agent, tuned in (doc.get("tuning") or {}).items():
+        console.print(f"{agent}: {budget_text(tuned)}", markup=False)
+    if doc.get("tuning_note"):
+        console.print(f"warning: {doc['tuning_note']}", markup=False)
     if doc["excluded_runs"]:
         console.print(f"{len(doc['excluded_runs'])} run(s) left out; listed in compare.json.",
                       markup=False)
