@@ -151,9 +151,10 @@ def sensitivity(data: Any, colors: dict) -> Figure:
                                             if a.split("[")[0] == t.agent), "C0")
         x = [float(r.value) for r in t.rows] if t.numeric else list(range(len(t.rows)))
         for xi, r in zip(x, t.rows, strict=True):
-            ax.plot([xi] * len(r.scores), r.scores, "o", color=color, alpha=0.35, ms=3, lw=0)
-            ax.plot([xi, xi], [r.iqm.low, r.iqm.high], color=color, lw=4, alpha=0.6,
-                    solid_capstyle="butt")
+            ax.plot([xi, xi], [r.iqm.low, r.iqm.high], color=color, lw=8, alpha=0.3,
+                    solid_capstyle="butt", zorder=1)
+            ax.plot([xi] * len(r.scores), r.scores, "o", color=color, mec="black", mew=0.4,
+                    alpha=0.8, ms=4, lw=0, zorder=3)
         ax.plot(x, [r.iqm.point for r in t.rows], "-", marker="_", color="black", ms=12,
                 lw=0.8 if t.numeric and not t.marginal else 0)
         if t.log_axis:
