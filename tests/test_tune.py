@@ -30,6 +30,7 @@ from optuna.storages import JournalStorage
 from optuna.storages.journal import JournalFileBackend
 from scipy.stats import trim_mean
 from seedsweep.runner.commands.main import main
+from seedsweep.runner.execution.config import compose
 from seedsweep.runner.execution.seeding import derive_seeds
 from seedsweep.runner.launch import api
 
@@ -351,3 +352,17 @@ def test_sensitivity_table_re_derives_from_the_runs_records(tmp_path):
         assert row["point"] == pytest.approx(trim_mean(normalised, 0.25), abs=1e-12)
         assert sorted(row["scores"]) == pytest.approx(sorted(normalised), abs=1e-12)
         assert row["low"] <= row["point"] <= row["high"]
+
+
+def test_a_config_dir_file_wins_over_the_shipped_one_and_earlier_config_dirs(tmp_path):
+    """What makes --config-dir <study>/chosen take effect for a shipped agent name: the last
+    folder that has agent/dqn.yaml wins (group_file's rule), the shipped configs last."""
+    first, second = tmp_path / "a", tmp_path / "b"
+    for folder, lr in ((first, 0.123), (second, 0.456)):
+        (folder / "agent").mkdir(parents=True)
+        doc = yaml.safe_load((ROOT / "configs" / "agent" / "dqn.yaml").read_text())
+        (folder / "agent" / "dqn.yaml").write_text(yaml.safe_dump({**doc, "lr": lr}))
+    assert compose(["agent=dqn"], [first])["agent"]["lr"] == 0.123
+    assert compose(["agent=dqn"], [first, second])["agent"]["lr"] == 0.456
+    assert compose(["agent=dqn"], [second, first])["agent"]["lr"] == 0.123
+    assert compose(["agent=dqn", "agent.lr=0.5"], [first])["agent"]["lr"] == 0.5
