@@ -487,9 +487,10 @@ def write_chosen(req: TuneRequest, agent: TunedAgent, result: dict[str, Any],
     doc = chosen_doc(req, agent, result, budget)
     best = result["best"]
     header = (f"# {agent.name} as chosen by seedsweep tune, study {req.study}: trial "
-              f"{best['trial']}, the best of {result['complete']} complete trials (objective "
-              f"{best['objective']:.6g}: {OBJECTIVE}).\n# Copied from {agent.path}; searched: "
-              f"{', '.join(agent.space.keys)}. Evaluate it on fresh seeds (below "
+              f"{best['trial']}, the best of {result['complete']} complete trials\n"
+              f"# (objective {best['objective']:.6g}: the IQM of the trial runs' normalised "
+              f"final scores).\n# Copied from {agent.path}; searched: "
+              f"{', '.join(agent.space.keys)}.\n# Evaluate it on fresh seeds (below "
               f"{TUNING_SEED_BASE}).\n")
     path = req.folder / CHOSEN_DIR / "agent" / f"{agent.name}.yaml"
     records.atomic_write_text(path, header + yaml.safe_dump(doc, sort_keys=False,
