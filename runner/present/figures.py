@@ -19,6 +19,7 @@ from matplotlib import (
     rc_context,  # noqa: E402
 )
 from matplotlib.figure import Figure  # noqa: E402
+from matplotlib.ticker import NullFormatter  # noqa: E402
 from seedsweep.runner.analysis.stats import STATISTICS  # noqa: E402
 
 STAT_TITLES = {"iqm": "IQM", "mean": "Mean", "median": "Median",
@@ -159,6 +160,7 @@ def sensitivity(data: Any, colors: dict) -> Figure:
                 lw=0.8 if t.numeric and not t.marginal else 0)
         if t.log_axis:
             ax.set_xscale("log")
+            ax.xaxis.set_minor_formatter(NullFormatter())  # decade labels only
         if not t.numeric:
             ax.set_xticks(x, [r.text for r in t.rows], rotation=30, ha="right")
         ax.set_title(t.title, fontsize=8)
