@@ -55,7 +55,7 @@ def test_wheel_has_one_namespace_and_the_configs(wheel):
     names = zipfile.ZipFile(wheel[0]).namelist()
     tops = {n.split("/")[0] for n in names if not n.split("/")[0].endswith(".dist-info")}
     assert tops == {"seedsweep"}
-    assert "seedsweep/configs/config.yaml" in names
+    assert "seedsweep/configs/defaults/config.yaml" in names
     assert "seedsweep/configs/agent/dqn.yaml" in names
     assert "seedsweep/configs/plan/demo.yaml" in names
 

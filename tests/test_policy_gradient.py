@@ -219,6 +219,7 @@ def test_shipped_yaml_sets_every_hyperparameter_and_builds(name, cls):
     raw = yaml.safe_load((CONFIGS / f"{name}.yaml").read_text())
     assert raw.pop("name") == name
     assert raw.pop("entry") == f"seedsweep.agents.{name}:{cls.__name__}"
+    assert isinstance(raw.pop("search"), dict)  # seedsweep tune's search space, not a setting
     import dataclasses
 
     assert set(raw) == {f.name for f in dataclasses.fields(cls.Config)}

@@ -26,6 +26,7 @@ from seedsweep.runner.analysis import (
     scores,
     selection,
     stats,
+    tuning,
 )
 from seedsweep.runner.analysis.permutation import PermutationResult
 from seedsweep.runner.analysis.runs import Problem, Sweep, load_sweep
@@ -243,6 +244,7 @@ def load_cells(opts: argparse.Namespace, allow_few: bool, pilot: bool = False) -
     """Load and check the sweep for a candidate and its baselines (refusals as ConfigError).
     ``pilot``: the cells are pilot runs for plan-seeds, which always needs 2 per cell."""
     sweep = load_sweep(Path(opts.sweep))
+    tuning.check_evaluation_runs(sweep.runs, Path(opts.sweep))
     cand, baselines = selection.select_pair_agents(sweep, opts.candidate, opts.baseline)
     agents = [cand, *baselines]
     envs = selection.select_envs(sweep, agents, opts.envs)
@@ -284,6 +286,9 @@ def compute_comparison(opts: argparse.Namespace) -> dict[str, Any]:
     comparisons = compare_all(cells.candidate, cells.baselines, cells.envs, norm, raw,
                               opts.resamples, opts.confidence, opts.seed, opts.alpha,
                               opts.interval)
+    tuned = {a: tuning.tuning_of([r for e in cells.envs for r in cells.by_cell[(a, e)]])
+             for a in agents}
+    floor = {r.label for r in cells.sweep.runs if r.is_floor}
     return {
         "sweep": cells.sweep.name,
         "candidate": cells.candidate,
@@ -293,6 +298,8 @@ def compute_comparison(opts: argparse.Namespace) -> dict[str, Any]:
         "alpha": opts.alpha,
         "methods": COMPARE_TOOLS,
         "comparisons": comparisons,
+        "tuning": tuned,
+        "tuning_note": tuning.tuning_note(cells.candidate, tuned, floor),
         "references": {e: references[e].as_dict() for e in cells.envs},
         "evaluation": cells.eval_settings,
         "bootstrap": {"resamples": opts.resamples, "confidence": opts.confidence,

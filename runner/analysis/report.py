@@ -16,7 +16,7 @@ from typing import Any
 
 import numpy as np
 from seedsweep.configs.checks import ConfigError
-from seedsweep.runner.analysis import scores, selection, stats
+from seedsweep.runner.analysis import scores, selection, sensitivity, stats, tuning
 from seedsweep.runner.analysis.runs import Problem, Run, Sweep, load_sweep
 from seedsweep.runner.analysis.scores import Reference
 from seedsweep.runner.analysis.stats import keyed_rng
@@ -62,6 +62,8 @@ class ReportData:
     eval_settings: dict[str, dict[str, Any]]
     floor_labels: frozenset[str] = frozenset()  # shown labels of the random floor's runs
     timing: dict[str, float] = field(default_factory=dict)
+    tuning: dict[str, dict[str, Any] | None] = field(default_factory=dict)  # label -> tuned
+    sensitivity: list[sensitivity.SensitivityTable] = field(default_factory=list)
 
 
 def compute_report(opts: argparse.Namespace) -> ReportData:
@@ -69,6 +71,7 @@ def compute_report(opts: argparse.Namespace) -> ReportData:
     when an env's random score must be measured first; writes nothing."""
     sweep_dir = Path(opts.sweep)
     sweep = load_sweep(sweep_dir)
+    tuning.check_not_mixed(sweep.runs, sweep_dir)
     problems = list(sweep.problems)
     agents = selection.select_agents(sweep, opts.agents, opts.include_random)
     envs = selection.select_envs(sweep, agents, opts.envs)
@@ -122,6 +125,9 @@ def compute_report(opts: argparse.Namespace) -> ReportData:
     per_env = per_env_table(shown, envs, by_cell, random_shown, run_scores, opts)
     env_curves = per_env_curves(agents, envs, by_cell, env_grids, opts)
     t3 = time.perf_counter()
+    swept = sensitivity.find_tables(compared, {r.run_id: run_scores[r.run_id][1]
+                                               for r in compared},
+                                    opts.resamples, opts.confidence, opts.seed)
     return ReportData(
         sweep=sweep, options=vars(opts).copy(), agents=agents, shown=shown, envs=envs,
         runs=used, references=references, run_scores=run_scores, aggregates=aggregates,
@@ -132,6 +138,9 @@ def compute_report(opts: argparse.Namespace) -> ReportData:
         floor_labels=frozenset(r.label for r in used if r.is_floor),
         timing={"aggregates_s": round(t1 - t0, 3), "sample_efficiency_s": round(t2 - t1, 3),
                 "per_env_s": round(t3 - t2, 3), "n_scores": len(used)},
+        tuning={a: tuning.tuning_of([r for e in envs for r in by_cell[(a, e)]])
+                for a in agents},
+        sensitivity=swept,
     )
 
 

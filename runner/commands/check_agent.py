@@ -110,6 +110,7 @@ def resolve_target(target: str, config_dirs: Sequence[str] = ()
                               f"{', '.join(allowed)}; or module:Class, or path/to/file.py:Class)")
         values = dict(compose([f"agent={target}"], [Path(d) for d in config_dirs])["agent"])
         values.pop("name", None)
+        values.pop("tuned", None)  # how a chosen configuration was tuned: not a setting
         entry = values.pop("entry", None)
     try:
         cls = load_agent_class(entry)

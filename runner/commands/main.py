@@ -23,11 +23,12 @@ from seedsweep.runner.commands import (
     report,
     run,
     status,
+    tune,
 )
 
 COMMANDS: dict[str, ModuleType] = {
     "run": run, "configs": configs, "status": status, "report": report, "compare": compare,
-    "plan-seeds": plan_seeds, "check-agent": check_agent,
+    "plan-seeds": plan_seeds, "check-agent": check_agent, "tune": tune,
 }
 
 

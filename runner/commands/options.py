@@ -64,6 +64,16 @@ def guarded(body: Callable[[], int | None]) -> int:
         return int(exit_.code or 0)
 
 
+def number_or_text(value: str) -> Any:
+    """A ``--slurm KEY=VALUE`` value: an int, a float, or the text itself."""
+    for cast in (int, float):
+        try:
+            return cast(value)
+        except ValueError:
+            pass
+    return value
+
+
 def add_config_dirs(p: argparse.ArgumentParser) -> None:
     p.add_argument("--config-dir", action="append", default=[], metavar="DIR",
                    help="an extra config folder with agent/, env/, suite/ and plan/ inside "

@@ -6,7 +6,6 @@ from __future__ import annotations
 import argparse
 import logging
 from collections.abc import Sequence
-from typing import Any
 
 from seedsweep.configs.checks import ConfigError
 from seedsweep.envs.wrappers import WRAPPERS
@@ -34,8 +33,9 @@ def build_parser() -> argparse.ArgumentParser:
   env=     {', '.join(group_options('env'))}
   suite=   {', '.join(group_options('suite'))}  (a set of envs with budgets; needs -m)
 
-top-level keys (defaults in configs/config.yaml):
+top-level keys (defaults in configs/defaults/config.yaml):
   seed              run seed (int); every other seed is derived from it and recorded
+  tuning            true only for the trial runs of seedsweep tune (seeds >= 1000000)
   steps             training budget in env steps
   eval.every        env steps between evaluations (plus one at the end)
   eval.episodes     episodes per evaluation
@@ -106,17 +106,8 @@ def parse_options(argv: Sequence[str]) -> argparse.Namespace:
         key, sep, value = item.partition("=")
         if not sep or not key:
             raise ConfigError("--slurm", f"expected KEY=VALUE, got {item!r}")
-        opts.slurm_params[key] = _number_or_text(value)
+        opts.slurm_params[key] = options.number_or_text(value)
     return opts
-
-
-def _number_or_text(value: str) -> Any:
-    for cast in (int, float):
-        try:
-            return cast(value)
-        except ValueError:
-            pass
-    return value
 
 
 def main(argv: Sequence[str]) -> int:

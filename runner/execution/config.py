@@ -28,15 +28,23 @@ from seedsweep.configs.checks import ConfigError, check_type, suggest, unknown_k
 
 TOP_KEYS = {
     "agent", "env", "seed", "steps", "eval", "sweep", "results_dir", "torch_threads",
-    "checkpoint", "log",
+    "checkpoint", "log", "tuning",
 }
+# Seeds from here up belong to tuning trials (``tuning: true``), the seeds below to every
+# other run: a configuration chosen on tuning seeds is never judged on the same seeds.
+TUNING_SEED_BASE = 1_000_000
 HYDRA_GROUPS = ("agent", "env")  # config folders that hydra composes
 PLAN_GROUPS = ("suite", "plan")  # config folders read by the launch layer only
 # Sections of an agent YAML that are not hyperparameters: settings per env config
 # (applied under the command line's own overrides) and the search space of ``tune``.
 AGENT_SECTIONS = ("per_env", "search")
+# Keys of an agent section that are records, not hyperparameters: the agent's name, its class
+# and, in a configuration chosen by ``tune``, how it was tuned (kept in the run's config, so it
+# is part of the run id and of config.yaml).
+AGENT_RECORDS = ("name", "entry", "tuned")
 SECTION_KEYS = {"eval": ("deterministic", "episodes", "every"), "checkpoint": ("every",),
                 "log": ("every",)}
+DEFAULTS = "defaults"  # the folder of the top-level config.yaml (hydra's primary folder)
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_][A-Za-z0-9_.-]*$")
 MAX_NAME = 100  # a run id joins two names; a path component may have 255 bytes
 MAX_EVAL_EPISODES = 100_000  # episode seeds are drawn up front, during the checks
@@ -182,13 +190,13 @@ def compose(overrides: Sequence[str], extra_dirs: Sequence[Path | str] = ()) -> 
     """
     _check_groups(overrides, extra_dirs)
     overrides = list(overrides)
-    search = []
-    if extra_dirs:
-        roots = ",".join(f"file://{d.resolve()}" for d in config_roots(extra_dirs)[1:])
-        search.append(f"hydra.searchpath=[{roots}]")
+    # every config folder on hydra's search path, where the first entry that has a file wins:
+    # the last --config-dir first, the shipped configs last (see _primary_dir)
+    roots = ",".join(f"file://{d.resolve()}" for d in reversed(config_roots(extra_dirs)))
+    search = [f"hydra.searchpath=[{roots}]"]
     while True:
         try:
-            with initialize_config_dir(config_dir=str(config_dir()), version_base=None):
+            with initialize_config_dir(config_dir=str(_primary_dir()), version_base=None):
                 cfg = hydra_compose(config_name="config", overrides=overrides + search)
             resolved = OmegaConf.to_container(cfg, resolve=True)
             break
@@ -198,6 +206,16 @@ def compose(overrides: Sequence[str], extra_dirs: Sequence[Path | str] = ()) -> 
                 raise ConfigError(_failing_key(str(err)), _first_line(str(err))) from None
             overrides = added
     return apply_per_env(resolved, overrides)
+
+
+def _primary_dir() -> Path:
+    """hydra's primary config folder: ``configs/defaults/``, which holds only the top-level
+    ``config.yaml``. hydra lets its primary folder win over every search-path entry; were
+    the folder with the groups primary, its agent/dqn.yaml would shadow a dqn.yaml under
+    --config-dir (such as a configuration chosen by ``seedsweep tune``). With the groups only
+    on the search path, the last --config-dir that has a file wins, as :func:`group_file`
+    says."""
+    return config_dir() / DEFAULTS
 
 
 def _as_addition(message: str, overrides: list[str]) -> list[str] | None:
@@ -232,7 +250,7 @@ def apply_per_env(resolved: dict[str, Any], overrides: Sequence[str]) -> dict[st
     given = {o.get_key_element().lstrip("+~") for o in parse_overrides(
         [o for o in overrides if not o.startswith("hydra.")])}
     for key, value in settings.items():
-        if key in ("name", "entry", *AGENT_SECTIONS):
+        if key in (*AGENT_RECORDS, *AGENT_SECTIONS):
             raise ConfigError(f"agent.per_env.{env_name}.{key}", "only hyperparameters can "
                               "differ by env")
         if f"agent.{key}" not in given:
@@ -265,8 +283,8 @@ def _check_groups(overrides: Sequence[str], extra_dirs: Sequence[Path | str]) ->
 
 
 def default_groups() -> dict[str, str]:
-    """The agent and env configs ``configs/config.yaml`` chooses by default."""
-    doc = read_yaml(config_dir() / "config.yaml", "config")
+    """The agent and env configs ``configs/defaults/config.yaml`` chooses by default."""
+    doc = read_yaml(config_dir() / DEFAULTS / "config.yaml", "config")
     out = {}
     for item in doc.get("defaults", []):
         if isinstance(item, dict):
@@ -315,6 +333,13 @@ def check_run_config(cfg: dict[str, Any]) -> None:
     seed = check_type("seed", cfg.get("seed"), int)
     if seed < 0:
         raise ConfigError("seed", f"must be a non-negative integer (got {seed})")
+    tuning = check_type("tuning", cfg.get("tuning", False), bool)
+    if tuning and seed < TUNING_SEED_BASE:
+        raise ConfigError("seed", f"tuning trials use seeds >= {TUNING_SEED_BASE} (got {seed}); "
+                          "the seeds below are for evaluation runs")
+    if not tuning and seed >= TUNING_SEED_BASE:
+        raise ConfigError("seed", f"seeds >= {TUNING_SEED_BASE} are reserved for tuning trials "
+                          f"(got {seed}); evaluation runs use seeds below {TUNING_SEED_BASE}")
     _positive_int(cfg, "steps")
     ev = cfg.get("eval") or {}
     _positive_int(ev, "every", "eval.every")

@@ -117,6 +117,10 @@ def prepare(cfg: dict[str, Any]) -> PreparedRun:
     if not isinstance(name, str) or not name:
         raise ConfigError("agent.name", "missing (every agent YAML sets name)")
     agent_cls, agent_module, agent_file = load_agent(agent_section.pop("entry", None))
+    tuned = agent_section.pop("tuned", None)  # a record of how the values were chosen
+    if tuned is not None and not isinstance(tuned, dict):
+        raise ConfigError("agent.tuned", f"expected the mapping seedsweep tune writes, got "
+                          f"{tuned!r}")
     agent_config = build_config(agent_cls, agent_section)
     gamma = getattr(agent_config, "gamma", None)
     if not isinstance(gamma, float) or not 0.0 < gamma <= 1.0:

@@ -136,6 +136,8 @@ def csv_text(columns: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
 def config_digest(resolved: dict[str, Any]) -> str:
     """SHA-256 (hex) of the parts of a resolved config that change what a run computes."""
     payload = {k: v for k, v in resolved.items() if k not in HASH_EXCLUDED}
+    if payload.get("tuning") is False:  # the default: ids of ordinary runs stay as they were
+        del payload["tuning"]
     blob = json.dumps(payload, sort_keys=True, separators=(",", ":"), default=str)
     return hashlib.sha256(blob.encode()).hexdigest()
 

@@ -14,6 +14,7 @@ from pathlib import Path
 
 from seedsweep.configs.checks import ConfigError, unknown_key
 from seedsweep.runner.execution.config import (
+    DEFAULTS,
     compose,
     config_dir,
     group_file,
@@ -125,13 +126,13 @@ def suite_budget(steps: dict, env: str, agent: str, path: Path) -> int:
 
 def _agents_of(overrides: Sequence[str]) -> list[str]:
     """The agent config names an override list selects (``agent=a,b``; default: the one in
-    configs/config.yaml)."""
+    configs/defaults/config.yaml)."""
     for o in parse_overrides(overrides):
         if o.get_key_element() == "agent":
             if o.is_sweep_override():
                 return [str(v) for v in o.sweep_string_iterator()]
             return [o.get_value_element_as_str()]
-    defaults = read_yaml(config_dir() / "config.yaml", "config").get("defaults", [])
+    defaults = read_yaml(config_dir() / DEFAULTS / "config.yaml", "config").get("defaults", [])
     return [next(d["agent"] for d in defaults if isinstance(d, dict) and "agent" in d)]
 
 

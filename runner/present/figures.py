@@ -19,6 +19,7 @@ from seedsweep.runner.present.curve_figures import (
 from seedsweep.runner.present.figure_parts import RC
 from seedsweep.runner.present.palette import agent_colours
 from seedsweep.runner.present.score_figures import agent_scores, head_to_head
+from seedsweep.runner.present.sensitivity_figure import sensitivity
 
 FIGURES: dict[str, Callable[[Any, dict[str, str]], Figure]] = {
     "agent_scores": agent_scores,
@@ -63,6 +64,11 @@ def captions(data: Any) -> dict[str, str]:
             f"and band: the random agent's score and its {conf} (Student-t over its "
             "evaluation episodes); dashed: the reference score. Right of each panel: every "
             "run's score as a dot, one column per agent in the legend's order."),
+        "sensitivity": (
+            "Per agent and swept key: the IQM of the normalised scores of the runs at each "
+            f"value (black tick) with its {conf} (shaded bar, {boot}), and every run's score "
+            "as a dot; a log axis for numeric keys spanning more than a factor of 10. "
+            "Tuning trials vary every searched key at once: those panels are marginal."),
     }
 
 
@@ -85,4 +91,6 @@ def all_figures(data: Any) -> dict[str, tuple[bytes, bytes]]:
     with rc_context(RC):
         for name, build in FIGURES.items():
             out[name] = _save(build(data, colours))
+        if getattr(data, "sensitivity", None):
+            out["sensitivity"] = _save(sensitivity(data, colours))
     return out

@@ -87,6 +87,7 @@ def render(data: Any, summary: dict[str, Any], figures: dict[str, tuple[bytes, b
         "<section id='training'><h2>Score over training (sample efficiency)</h2>",
         figure(figures, "score_over_training", "IQM normalised score at each evaluation",
                caps["score_over_training"]), "</section>",
+        _sensitivity(summary, figures, caps),
         _per_env(data, summary, colours),
         figure(figures, "curves_per_env", "per-env returns over training",
                caps["curves_per_env"]),
@@ -212,6 +213,30 @@ def _per_env(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str
               if any(is_random(a, data.floor_labels) for a in data.shown) else []),
         "</section>",
     ])
+
+
+def _sensitivity(summary: dict[str, Any], figures: dict[str, tuple[bytes, bytes]],
+                 caps: dict[str, str]) -> str:
+    """Per agent and swept key: the IQM of normalised scores at each value (empty when the
+    folder sweeps no key)."""
+    tables = summary.get("sensitivity") or []
+    if not tables:
+        return ""
+    parts = ["<section id='sensitivity'><h2>Sensitivity to swept settings</h2>",
+             "<p>Per swept key: the IQM of normalised scores over the runs at each value "
+             "(pooled over envs and seeds), its stratified bootstrap interval, and the run "
+             "count. Tuning trials vary every searched key at once: their tables are marginal "
+             "(the other keys vary).</p>"]
+    for t in tables:
+        fixed = ",".join(f"{k}={v}" for k, v in t["fixed"].items())
+        title = f"{t['agent']}{f' [{fixed}]' if fixed else ''}: {t['key']}" + (
+            " (tuning trials: other keys vary)" if t["marginal"] else "")
+        parts += [f"<h3>{esc(title)}</h3>", table(
+            [t["key"], "IQM [95% CI]", "runs"],
+            [[json.dumps(r["value"]), interval_cell(r), r["n_runs"]] for r in t["rows"]])]
+    parts += [figure(figures, "sensitivity", "score against each swept key",
+                     caps.get("sensitivity", "")), "</section>"]
+    return "\n".join(parts)
 
 
 def _protocol(data: Any, summary: dict[str, Any]) -> str:

@@ -45,7 +45,7 @@ def summary_dict(data: ReportData) -> dict[str, Any]:
         "sweep": data.sweep.name,
         "agents": {
             a: {**{k: v.as_dict() for k, v in data.aggregates[a].items()},
-                "n_runs": data.n_runs[a]}
+                "n_runs": data.n_runs[a], "tuning": data.tuning.get(a)}
             for a in data.agents
         },
         "n_envs": len(data.envs),
@@ -64,6 +64,7 @@ def summary_dict(data: ReportData) -> dict[str, Any]:
         "shown_agents": data.shown,
         "floor_agents": sorted(data.floor_labels),
         "excluded_runs": [vars(p) for p in data.problems],
+        "sensitivity": [t.as_dict() for t in data.sensitivity],
         "timing": data.timing,
     }
 

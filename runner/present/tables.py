@@ -18,6 +18,7 @@ from rich.measure import Measurement
 from rich.table import Table
 from rich.text import Text  # cells and headers as Text: agent labels contain [...]
 from seedsweep.runner.analysis.report import ReportData
+from seedsweep.runner.analysis.tuning import budget_text
 from seedsweep.runner.present import text
 
 
@@ -96,6 +97,11 @@ def print_summary(data: ReportData, target: Path, comparison: Any = None) -> Non
         refs.add_row(Text(e), Text(text.random_score(r)), Text(f"{r.reference:.4g}"),
                      Text(text.SOURCES.get(r.source, r.source)))
     _show(console, refs)
+    if any(data.tuning.values()):
+        for a in data.agents:
+            _say(console, f"{a}: {budget_text(data.tuning.get(a))}")
+    for t in data.sensitivity:
+        print_sensitivity(console, t)
     if data.problems:
         _say(console, f"{len(data.problems)} run(s) left out; listed in the report.")
     doc = comparison.doc if comparison is not None else None
@@ -110,6 +116,42 @@ def print_summary(data: ReportData, target: Path, comparison: Any = None) -> Non
     _next(console, text.next_steps(str(data.sweep.path), page.resolve().as_uri(),
                                    doc["candidate"] if doc else None, data.agents,
                                    doc["comparisons"] if doc else None))
+
+
+def print_sensitivity(console: Console, t: Any) -> None:
+    """One swept key of one agent: the IQM of normalised scores with its interval per value."""
+    _say(console, f"sensitivity of {t.title}: IQM of normalised scores over runs", "bold")
+    table = _table((t.key, "right"), ("IQM, 95% CI", "right"), ("runs", "right"))
+    for r in t.rows:
+        table.add_row(Text(r.text), Text(text.interval(r.iqm.as_dict())), Text(str(r.n_runs)))
+    _show(console, table)
+
+
+def print_tuning(doc: dict[str, Any], agents: list[str], chosen: dict[str, Path]) -> None:
+    """A study's result per agent: trials complete of the budget, best objective, the
+    chosen values and where the chosen YAML is."""
+    console = _console()
+    b = doc["budget"]
+    _say(console, f"study {doc['study']}: {b['trials']} trials × {b['steps']} steps × "
+         f"{len(b['envs'])} envs ({', '.join(b['envs'])}) × {b['seeds_per_env']} tuning "
+         "seeds per agent; objective: IQM of normalised final scores", "bold")
+    table = _table(("agent", "left"), ("complete", "right"), ("failed", "right"),
+                   ("best objective", "right"), ("best trial", "right"),
+                   ("chosen values", "left"))
+    for name, s in doc["summary"].items():
+        best = s["best"]
+        values = ", ".join(f"{k}={_value(v)}" for k, v in (best or {}).get("values", {}).items())
+        table.add_row(Text(name), Text(f"{s['complete']}/{s['trials']}"), Text(str(s["failed"])),
+                      Text("-" if best is None else f"{best['objective']:.4f}"),
+                      Text("-" if best is None else str(best["trial"])), Text(values or "-"))
+    _show(console, table)
+    for name in agents:
+        if name in chosen:
+            _say(console, f"{name}: chosen configuration in {chosen[name]}")
+
+
+def _value(v: Any) -> str:
+    return f"{v:.4g}" if isinstance(v, float) else str(v)
 
 
 def _next(console: Console, steps: list[str]) -> None:

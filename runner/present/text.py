@@ -9,6 +9,7 @@ from typing import Any
 
 from seedsweep.runner.analysis import stats
 from seedsweep.runner.analysis.coverage import coverage_note
+from seedsweep.runner.analysis.tuning import budget_text
 
 SCALE_NOTE = "normalised scores: 0 = the random agent, 1 = the reference score of each env"
 GAP_NOTE = "optimality gap: mean shortfall below the reference; lower is better"
@@ -93,19 +94,8 @@ def coverage_line(seeds_per_env: int, envs: int) -> str | None:
 
 
 def tuning_line(tuning: Any) -> str:
-    """``tuned: T trials × S steps × E envs`` or ``not tuned`` for one agent's record."""
-    if not isinstance(tuning, Mapping):
-        return "not tuned"
-    parts = []
-    for key, unit in (("trials", "trials"), ("steps", "steps"), ("envs", "envs"),
-                      ("seeds", "seeds")):
-        value = tuning.get(key)
-        if isinstance(value, list | tuple):
-            value = len(value)
-        if value is not None:
-            parts.append(f"{value:,}" if isinstance(value, int) else str(value))
-            parts[-1] += f" {unit}"
-    return "tuned: " + " × ".join(parts) if parts else "tuned"
+    """``tuned: T trials × S steps × E envs × K seeds (study ...)`` or ``not tuned``."""
+    return budget_text(tuning if isinstance(tuning, Mapping) else None)
 
 
 def timing_rows(timing: Mapping[str, Any]) -> list[tuple[str, str]]:
