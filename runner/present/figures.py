@@ -36,7 +36,7 @@ def captions(data: Any) -> dict[str, str]:
     boot = (f"{data.options['resamples']} stratified bootstrap resamples (each env's runs "
             "resampled with replacement)")
     median = text.median_note(len(data.envs))
-    return {
+    out = {
         "agent_scores": (
             "Top: one dot per run, its final normalised score (marker shape = env; dots of "
             "equal score are set side by side, so three seeds show as three dots). Beside "
@@ -64,12 +64,14 @@ def captions(data: Any) -> dict[str, str]:
             f"and band: the random agent's score and its {conf} (Student-t over its "
             "evaluation episodes); dashed: the reference score. Right of each panel: every "
             "run's score as a dot, one column per agent in the legend's order."),
-        "sensitivity": (
+    }
+    if getattr(data, "sensitivity", None):
+        out["sensitivity"] = (
             "Per agent and swept key: the IQM of the normalised scores of the runs at each "
             f"value (black tick) with its {conf} (shaded bar, {boot}), and every run's score "
             "as a dot; a log axis for numeric keys spanning more than a factor of 10. "
-            "Tuning trials vary every searched key at once: those panels are marginal."),
-    }
+            "Tuning trials vary every searched key at once: those panels are marginal.")
+    return out
 
 
 def _save(fig: Figure) -> tuple[bytes, bytes]:
