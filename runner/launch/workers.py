@@ -3,13 +3,26 @@
 A process per run isolates failures: an exception is recorded by the run itself, and a
 process that dies (a crash, the OOM killer, SIGKILL) is seen by the parent, which marks
 that run failed and goes on with the others.
+
+Run processes are forked from a warm server (multiprocessing's forkserver) that imported
+numpy, torch, gymnasium and seedsweep's agents, envs and execution modules once, with one
+torch thread set; so a run's start-up is a fork, not an interpreter plus imports (seconds).
+The server only imports: it never steps an env or draws a random number, and every run
+seeds all its randomness itself from its seed, so a run gets the same bytes as from a fresh
+interpreter. Each child takes the parent's current working directory, environment and
+stdout/stderr, which may have changed since the server started.
 """
 
 from __future__ import annotations
 
+import importlib.util
 import logging
 import multiprocessing as mp
+import multiprocessing.connection as mp_connection
+import multiprocessing.forkserver as mp_forkserver
+import multiprocessing.reduction as mp_reduction
 import os
+import pkgutil
 import queue as queue_mod
 import signal
 import sys
@@ -18,6 +31,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import torch
 from seedsweep.runner.execution import logs, records
 from seedsweep.runner.execution.prepare import PreparedRun, prepare
 from seedsweep.runner.execution.progress import RunListener
@@ -28,6 +42,12 @@ from seedsweep.runner.launch.display import QueueProgress, RunProgress, SweepPro
 logger = logging.getLogger(__name__)
 
 EXIT_BUSY = 3
+START_METHOD = "forkserver"  # "spawn": a fresh interpreter per run (seconds of imports each)
+# imported once by the forkserver; the first one sets one torch thread before anything runs
+PRELOAD_FIRST = ("seedsweep.runner.launch.preload", "numpy", "torch", "gymnasium",
+                 "gymnasium.envs.classic_control", "gymnasium.envs.toy_text",
+                 "gymnasium.envs.box2d")
+PRELOAD_PACKAGES = ("seedsweep.agents", "seedsweep.envs", "seedsweep.runner.execution")
 
 
 @dataclass
@@ -35,6 +55,8 @@ class Outcome:
     complete: int = 0
     failed: list[tuple[str, str]] = field(default_factory=list)
     busy: list[str] = field(default_factory=list)
+    # run id -> (seconds from starting its process to seeing it end, the run's loop_s)
+    process_s: dict[str, tuple[float, float | None]] = field(default_factory=dict)
 
 
 def default_workers() -> int:
@@ -77,7 +99,68 @@ def run_job(config: dict[str, Any], retry_failed: bool = False,
     return doc
 
 
-def _worker(config: dict[str, Any], run_id: str, retry_failed: bool, messages) -> None:
+def preload_modules() -> list[str]:
+    """What the forkserver imports: the heavy libraries, then every module of seedsweep's
+    agents, envs and execution packages (found on disk, nothing agent-specific), then this
+    module (the processes' entry point)."""
+    names = list(PRELOAD_FIRST)
+    for package in PRELOAD_PACKAGES:
+        names.extend(_modules_under(package))
+    names.append(__name__)
+    return names
+
+
+def _modules_under(package: str) -> list[str]:
+    spec = importlib.util.find_spec(package)
+    if spec is None or not spec.submodule_search_locations:
+        return []
+    out = [package]
+    for info in pkgutil.iter_modules(list(spec.submodule_search_locations)):
+        name = f"{package}.{info.name}"
+        out.extend(_modules_under(name) if info.ispkg else [name])
+    return out
+
+
+def context(start_method: str = START_METHOD) -> Any:
+    """The multiprocessing context runs start from; the forkserver is started here (once per
+    process; it stays up for later sweeps) so its imports overlap with the caller's work."""
+    ctx = mp.get_context(start_method)
+    if start_method == "forkserver":
+        ctx.set_forkserver_preload(preload_modules())
+        mp_forkserver.ensure_running()
+    return ctx
+
+
+class _ParentSide:
+    """The parent's working directory, environment and stdout/stderr at the moment a run
+    starts, handed to the forked child (the server's own may be older)."""
+
+    def __init__(self) -> None:
+        self.cwd = os.getcwd()
+        self.env = dict(os.environ)
+
+    def __reduce__(self):
+        fds = []
+        for stream in (sys.stdout, sys.stderr):
+            try:
+                fds.append(mp_reduction.DupFd(stream.fileno()))
+            except (AttributeError, OSError, ValueError):  # no real file behind the stream
+                fds.append(None)
+        return (_ParentSide._rebuild, (self.cwd, self.env, fds))
+
+    @staticmethod
+    def _rebuild(cwd: str, env: dict[str, str], fds: list) -> None:
+        os.chdir(cwd)
+        os.environ.clear()
+        os.environ.update(env)
+        for target, fd in zip((1, 2), fds, strict=True):
+            if fd is not None:
+                os.dup2(fd.detach(), target)
+
+
+def _worker(config: dict[str, Any], run_id: str, retry_failed: bool, messages,
+            parent: Any = None) -> None:
+    torch.set_num_threads(int(config.get("torch_threads", 1)))
     try:
         doc = run_job(config, retry_failed,
                       QueueProgress(messages).for_run(run_id, int(config["steps"])))
@@ -86,12 +169,14 @@ def _worker(config: dict[str, Any], run_id: str, retry_failed: bool, messages) -
     sys.exit(EXIT_BUSY if doc.get("status") == "busy" else 0)
 
 
-def run_local(planned: list[PreparedRun], workers: int, opts) -> Outcome:
+def run_local(planned: list[PreparedRun], workers: int, opts,
+              start_method: str = START_METHOD) -> Outcome:
     """Run ``planned`` in up to ``workers`` processes; the order is kept."""
-    ctx = mp.get_context("spawn")
+    ctx = context(start_method)
     messages = ctx.Queue()
     pending = list(planned)
     running: dict[str, tuple[Any, PreparedRun]] = {}
+    launched: dict[str, float] = {}
     outcome = Outcome()
     display = SweepProgress(planned, workers, mode=opts.progress)
     try:
@@ -99,18 +184,23 @@ def run_local(planned: list[PreparedRun], workers: int, opts) -> Outcome:
             while pending and len(running) < workers:
                 p = pending.pop(0)
                 proc = ctx.Process(target=_worker,
-                                   args=(p.config, p.run_id, opts.retry_failed, messages),
+                                   args=(p.config, p.run_id, opts.retry_failed, messages,
+                                         _ParentSide()),
                                    name=p.run_id, daemon=False)
+                launched[p.run_id] = time.perf_counter()
                 proc.start()
                 running[p.run_id] = (proc, p)
                 display.started(p.run_id)
-            _drain(messages, display, timeout=0.25)
+            # wake when a process ends (its start-to-end time is measured) or after 0.25 s
+            mp_connection.wait([proc.sentinel for proc, _ in running.values()], timeout=0.25)
+            _drain(messages, display, timeout=0.0)
             for run_id, (proc, p) in list(running.items()):
                 if proc.is_alive():
                     continue
                 proc.join()
+                took = time.perf_counter() - launched[run_id]
                 del running[run_id]
-                _settle(proc.exitcode, p, outcome, display)
+                _settle(proc.exitcode, p, outcome, display, took)
             display.refresh()
         _drain(messages, display, timeout=0.0)
     except KeyboardInterrupt:
@@ -137,13 +227,16 @@ def _drain(messages, display: SweepProgress, timeout: float) -> None:
         deadline = time.monotonic()
 
 
-def _settle(exitcode: int | None, p: PreparedRun, outcome: Outcome, display: SweepProgress) -> None:
+def _settle(exitcode: int | None, p: PreparedRun, outcome: Outcome, display: SweepProgress,
+            took: float = 0.0) -> None:
     """Read what the finished process left on disk; a dead worker's run is marked failed."""
     try:
         doc = records.read_run_json(p.run_dir) or {}
     except records.RecordError:
         doc = {}
     status = doc.get("status")
+    outcome.process_s[p.run_id] = (took, doc.get("loop_s"))
+    logger.debug("%s: process %.2f s, loop %s s", p.run_id, took, doc.get("loop_s"))
     if exitcode == EXIT_BUSY:
         outcome.busy.append(p.run_id)
         display.finished(p.run_id, "busy")
