@@ -48,3 +48,19 @@ class MultiDiscreteActions(ConstantReward):
     def __init__(self, reward: float = 1.0, horizon: int = 10):
         super().__init__(reward, horizon)
         self.action_space = spaces.MultiDiscrete([2, 3])
+
+
+class SeedLength(ConstantReward):
+    """Episode length set by the reset seed, ``seed % 7 + 1``; reward 1 + action per step.
+
+    Its return under a policy that always plays action a is (1 + a)·(seed % 7 + 1).
+    """
+
+    def reset(self, *, seed=None, options=None):
+        obs, info = super().reset(seed=seed, options=options)
+        self.horizon = int(seed) % 7 + 1
+        return obs, info
+
+    def step(self, action):
+        self.t += 1
+        return self._obs(), 1.0 + float(action), self.t >= self.horizon, False, {}

@@ -42,7 +42,7 @@ AGENT_SECTIONS = ("per_env", "search")
 # and, in a configuration chosen by ``tune``, how it was tuned (kept in the run's config, so it
 # is part of the run id and of config.yaml).
 AGENT_RECORDS = ("name", "entry", "tuned")
-SECTION_KEYS = {"eval": ("deterministic", "episodes", "every"), "checkpoint": ("every",),
+SECTION_KEYS = {"eval": ("batched", "deterministic", "episodes", "every"), "checkpoint": ("every",),
                 "log": ("every",)}
 DEFAULTS = "defaults"  # the folder of the top-level config.yaml (hydra's primary folder)
 SAFE_NAME = re.compile(r"^[A-Za-z0-9_][A-Za-z0-9_.-]*$")
@@ -348,6 +348,8 @@ def check_run_config(cfg: dict[str, Any]) -> None:
         raise ConfigError("eval.episodes", f"must be at most {MAX_EVAL_EPISODES} (got "
                           f"{episodes}); every evaluation plays them all")
     check_type("eval.deterministic", ev.get("deterministic"), bool)
+    if "batched" in ev:  # absent (a config written before the key existed): batched
+        check_type("eval.batched", ev["batched"], bool)
     _positive_int(cfg, "torch_threads")
     ck = cfg.get("checkpoint") or {}
     every = check_type("checkpoint.every", ck.get("every", 0), int)

@@ -17,7 +17,12 @@ import numpy as np
 from seedsweep.agents.base import Agent, Step
 from seedsweep.envs.batch import TrainEnvs
 from seedsweep.runner.execution.progress import RunListener
-from seedsweep.runner.execution.protocol import EpisodeRecord, evaluate, mean_and_stderr
+from seedsweep.runner.execution.protocol import (
+    EpisodeRecord,
+    evaluate,
+    evaluate_batched,
+    mean_and_stderr,
+)
 from seedsweep.runner.execution.seeding import capture_global_rngs, restore_global_rngs
 from seedsweep.runner.execution.state import nonfinite_path
 
@@ -79,10 +84,12 @@ class Trainer:
         progress: RunListener,
         on_evaluation: Callable[[Trainer], None] | None = None,
         on_checkpoint: Callable[[Trainer], None] | None = None,
+        eval_envs: Sequence[Any] = (),
     ):
         self.agent = agent
         self.envs = envs
         self.eval_env = eval_env
+        self.eval_envs = list(eval_envs)  # for the batched protocol (more than one env)
         self.schedule = schedule
         self.train_seed = train_seed
         self.eval_seeds = eval_seeds
@@ -192,8 +199,12 @@ class Trainer:
         while self.next_eval <= self.env_steps:
             self.next_eval += self.schedule.eval_every
         normalize = self.envs.normalizer
-        recs = evaluate(self.agent, self.eval_env, self.eval_seeds, self.env_steps,
-                        self.schedule.deterministic, normalize)
+        if len(self.eval_envs) > 1:
+            recs = evaluate_batched(self.agent, self.eval_envs, self.eval_seeds, self.env_steps,
+                                    normalize)
+        else:
+            recs = evaluate(self.agent, self.eval_env, self.eval_seeds, self.env_steps,
+                            self.schedule.deterministic, normalize)
         self.records.evals.extend(recs)
         mean, se = mean_and_stderr([r.ret for r in recs])
         if self.tb is not None:

@@ -23,6 +23,7 @@ from seedsweep.runner.execution import checkpoints, records
 from seedsweep.runner.execution.loop import Schedule, Trainer
 from seedsweep.runner.execution.prepare import PreparedRun
 from seedsweep.runner.execution.progress import RunListener, Silent
+from seedsweep.runner.execution.protocol import batch_width
 from seedsweep.runner.execution.seeding import seed_globals
 from torch.utils.tensorboard import SummaryWriter
 
@@ -150,6 +151,9 @@ class _Built:
         agent = p.agent_cls(self.envs.single_observation_space, self.envs.single_action_space,
                             p.agent_config, p.seeds.agent)
         ev = p.config["eval"]
+        width = batch_width(p.agent_cls, ev["episodes"], ev["deterministic"],
+                            ev.get("batched", True))
+        self.eval_envs = [self.eval_env] + [make_eval_env(p.env) for _ in range(width - 1)]
         schedule = Schedule(
             budget=p.config["steps"], eval_every=ev["every"], eval_episodes=ev["episodes"],
             deterministic=ev["deterministic"], log_every=p.config["log"]["every"],
@@ -162,6 +166,7 @@ class _Built:
             on_evaluation=lambda t: _progress_records(p, p.run_dir, t, started),
             on_checkpoint=lambda t: checkpoints.save(p.run_dir, bound, t.capture(),
                                                      t.env_steps),
+            eval_envs=self.eval_envs,
         )
         if schedule.checkpoint_every:
             kind = self.envs.snapshot_kind()
@@ -176,7 +181,8 @@ class _Built:
 
     def close(self) -> None:
         self.envs.close()
-        self.eval_env.close()
+        for env in self.eval_envs:
+            env.close()
 
 
 def _train(p: PreparedRun, bar: RunListener, existing: dict[str, Any] | None) -> dict[str, Any]:
@@ -194,7 +200,7 @@ def _train(p: PreparedRun, bar: RunListener, existing: dict[str, Any] | None) ->
         built, resumed = _resume(p, bar, started) if existing else (None, None)
         if built is None:
             built = _Built(p, bar, started)
-        trainer, envs, eval_env = built.trainer, built.envs, built.eval_env
+        trainer = built.trainer
         trainer.tb = SummaryWriter(log_dir=str(run_dir / "tb"),
                                    purge_step=trainer.env_steps if resumed else None)
         loop_start = time.perf_counter()
@@ -204,8 +210,7 @@ def _train(p: PreparedRun, bar: RunListener, existing: dict[str, Any] | None) ->
             loop_s = time.perf_counter() - loop_start
             bar.close()
             trainer.tb.close()
-            envs.close()
-            eval_env.close()
+            built.close()
         write_records(run_dir, trainer)
         final = checkpoints.to_bytes(binding(p), trainer.capture(final=True))
         records.atomic_write_bytes(run_dir / CHECKPOINT, final)
