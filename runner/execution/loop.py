@@ -110,6 +110,8 @@ class Trainer:
         self._clock_steps = 0
         self.steps_per_s = 0.0
         self._logged_episodes = 0
+        self.eval_s = 0.0  # seconds spent evaluating in this process (for estimates)
+        self.eval_steps = 0  # env steps played by those evaluations
 
     def run(self) -> Records:
         """Train to the budget; evaluate every ``eval_every`` steps and once at the end."""
@@ -199,12 +201,15 @@ class Trainer:
         while self.next_eval <= self.env_steps:
             self.next_eval += self.schedule.eval_every
         normalize = self.envs.normalizer
+        start = time.perf_counter()
         if len(self.eval_envs) > 1:
             recs = evaluate_batched(self.agent, self.eval_envs, self.eval_seeds, self.env_steps,
                                     normalize)
         else:
             recs = evaluate(self.agent, self.eval_env, self.eval_seeds, self.env_steps,
                             self.schedule.deterministic, normalize)
+        self.eval_s += time.perf_counter() - start
+        self.eval_steps += sum(r.length for r in recs)
         self.records.evals.extend(recs)
         mean, se = mean_and_stderr([r.ret for r in recs])
         if self.tb is not None:

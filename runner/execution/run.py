@@ -220,6 +220,7 @@ def _train(p: PreparedRun, bar: RunListener, existing: dict[str, Any] | None) ->
             p, "complete", started, env_steps=trainer.env_steps,
             final_score=sum(finals) / len(finals),
             wall_s=round(prior_wall + time.perf_counter() - t0, 3), loop_s=round(loop_s, 3),
+            eval_s=round(trainer.eval_s, 3), eval_steps=trainer.eval_steps,
             finished=records.now_iso(), resumed_from=resumed,
         )
         records.atomic_write_json(run_dir / "run.json", doc)
