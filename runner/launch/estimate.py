@@ -1,8 +1,14 @@
-"""Wall-time estimate of a sweep before it starts.
+"""Wall-time estimate of a sweep before it starts, and the costs its live ETA builds on.
 
-Cost per env step of each agent × env comes from earlier complete runs on this machine
-(a small cache under ``$SEEDSWEEP_CACHE`` or ``~/.cache/seedsweep``), or else from a short
-calibration run of that pair (a couple of thousand steps, its whole training loop timed).
+A run costs its start-up, its training (env steps × seconds per step) and its evaluations
+(evaluations × episodes × expected episode length × seconds per evaluation step). The three
+rates of each agent × env pair come from earlier complete runs on this machine (a small
+cache under ``$SEEDSWEEP_CACHE`` or ``~/.cache/seedsweep``), or else from a short
+calibration run of that pair (its training rate measured over the second half, after any
+warm-up, and one evaluation of the planned episodes, whose mean length it takes: an
+untrained policy's, so an estimate from calibration undercounts the evaluations of agents
+whose episodes grow as they learn; the cache, filled by every complete run, does not).
+Runs are then placed on the workers in the planned order, as the launcher places them.
 """
 
 from __future__ import annotations
@@ -11,17 +17,62 @@ import copy
 import json
 import os
 import socket
+import statistics
 import tempfile
 import time
+from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 from seedsweep.runner.execution.prepare import PreparedRun, prepare
 from seedsweep.runner.execution.records import atomic_write_json
 from seedsweep.runner.execution.run import execute
 from seedsweep.runner.launch.display import fmt_eta
+from seedsweep.runner.launch.schedule import makespan
 
 CALIBRATION_STEPS = 2000
-STARTUP_S = 3.5  # per run: a fresh process importing torch and gymnasium (measured here, 2-4 s)
+CALIBRATION_EPISODES = 10  # at most: enough for a mean episode length
+# per run: a process forked from the warm server, building envs and agent, writing records;
+# median of (process wall time - loop time) over 12 short random-agent runs, measured with
+# benchmarks/startup.py on 2 cores at load ~2 (0.07 s); DQN runs pay a little more (replay
+# buffer, checkpoint). Superseded by the machine's own measurement once a sweep ran.
+STARTUP_S = 0.15
+SERVER_START_S = 2.0  # once per sweep: the server's imports (torch, gymnasium), measured 1.3 s
+STARTUP_KEY = "startup"
+
+
+@dataclass
+class PairCost:
+    """Seconds per training env step, per evaluation env step, and the mean episode length
+    of an evaluation, for one agent × env pair on this machine."""
+
+    train_s: float
+    eval_s: float = 0.0
+    eval_length: float = 0.0
+
+    def as_dict(self) -> dict[str, float]:
+        return {"train_s": self.train_s, "eval_s": self.eval_s, "eval_length": self.eval_length}
+
+
+@dataclass
+class Estimate:
+    """Per-run costs (seconds, start-up included), the sweep's wall time and its basis."""
+
+    costs: dict[str, float]
+    wall_s: float
+    basis: dict[str, int] = field(default_factory=dict)
+    startup_s: float = STARTUP_S
+    startup_measured: bool = False
+    workers: int = 1
+
+    def line(self) -> str:
+        where = ", ".join(f"{n} agent × env pair(s) from {s}" for s, n in self.basis.items() if n)
+        start = ("measured by earlier sweeps here" if self.startup_measured
+                 else "this version's default")
+        return (f"{len(self.costs)} runs on {self.workers} worker(s): estimated wall time "
+                f"{fmt_eta(self.wall_s)} (training + evaluation + {self.startup_s:.2f} s "
+                f"start-up per run, {start}; rates of {where}; runs placed on the workers "
+                "in the planned order)")
 
 
 def cache_file() -> Path:
@@ -33,68 +84,160 @@ def _key(p) -> str:
     return f"{socket.gethostname()}|{p.config['agent']['name']}|{p.env.id}"
 
 
-def load_costs() -> dict[str, float]:
+def load_costs() -> dict[str, Any]:
     try:
-        return json.loads(cache_file().read_text())
+        doc = json.loads(cache_file().read_text())
     except (OSError, ValueError):
         return {}
+    return doc if isinstance(doc, dict) else {}
 
 
-def remember(p, seconds_per_step: float) -> None:
-    """Record the measured cost of one complete run (a running mean per pair)."""
-    costs = load_costs()
-    key = _key(p)
-    old = costs.get(key)
-    costs[key] = seconds_per_step if old is None else 0.5 * (old + seconds_per_step)
+def _pair(value: Any) -> PairCost | None:
+    """A cached entry: a dict of the three rates (an older cache held the bare training
+    cost per step, evaluations included)."""
+    try:
+        if isinstance(value, (int, float)):
+            return PairCost(float(value))
+        if isinstance(value, dict):
+            return PairCost(float(value["train_s"]), float(value.get("eval_s", 0.0)),
+                            float(value.get("eval_length", 0.0)))
+    except (KeyError, TypeError, ValueError):
+        return None
+    return None
+
+
+def _save(costs: dict[str, Any]) -> None:
     try:
         atomic_write_json(cache_file(), costs)
     except OSError:
         pass  # an estimate cache is a convenience, never a reason to fail a run
 
 
+def remember(p, cost: PairCost) -> None:
+    """Record the measured rates of one complete run (a running mean per pair)."""
+    costs = load_costs()
+    key = _key(p)
+    old = _pair(costs.get(key))
+    if old is not None and isinstance(costs.get(key), dict):
+        cost = PairCost(*(0.5 * (a + b) for a, b in zip(
+            (old.train_s, old.eval_s, old.eval_length),
+            (cost.train_s, cost.eval_s, cost.eval_length), strict=True)))
+    costs[key] = cost.as_dict()
+    _save(costs)
+
+
+def measured(doc: dict) -> PairCost | None:
+    """The rates of a run from its run.json (loop_s, eval_s, eval_steps, env_steps)."""
+    loop_s, steps = doc.get("loop_s"), doc.get("env_steps")
+    if not loop_s or not steps:
+        return None
+    eval_s = float(doc.get("eval_s") or 0.0)
+    eval_steps = int(doc.get("eval_steps") or 0)
+    episodes = int((doc.get("eval") or {}).get("episodes") or 0)
+    n_evals = _evaluations(int(steps), int((doc.get("eval") or {}).get("every") or steps))
+    length = eval_steps / (n_evals * episodes) if eval_steps and episodes else 0.0
+    return PairCost((float(loop_s) - eval_s) / int(steps),
+                    eval_s / eval_steps if eval_steps else 0.0, length)
+
+
 def remember_run(p: PreparedRun, doc: dict) -> None:
-    """After a run completed in one go: remember its cost per env step."""
-    loop_s = doc.get("loop_s")
+    """After a run completed in one go: remember its rates."""
     if doc.get("skipped") or doc.get("status") != "complete" or doc.get("resumed_from"):
         return
-    if loop_s and doc.get("env_steps"):
-        remember(p, float(loop_s) / max(1, int(doc["env_steps"])))
+    cost = measured(doc)
+    if cost is not None:
+        remember(p, cost)
 
 
-def calibrate(p: PreparedRun) -> float:
-    """Seconds per env step of one agent × env pair, from a short throwaway run."""
+def remember_startup(seconds: list[float]) -> None:
+    """The median start-up of a sweep's runs (process wall time - loop time), kept per host."""
+    if not seconds:
+        return
+    costs = load_costs()
+    key = f"{socket.gethostname()}|{STARTUP_KEY}"
+    new = statistics.median(seconds)
+    old = costs.get(key)
+    costs[key] = new if not isinstance(old, (int, float)) else 0.5 * (old + new)
+    _save(costs)
+
+
+def _evaluations(steps: int, every: int) -> int:
+    """Evaluations of a run: every ``every`` steps, and one at the end if that is not one."""
+    every = max(1, every)
+    return steps // every + (1 if steps % every else 0)
+
+
+class _Clock:
+    """A listener that notes (time, env steps) at each progress report of a run."""
+
+    def __init__(self) -> None:
+        self.marks: list[tuple[float, int]] = []
+
+    def update(self, steps: int, steps_per_s: float | None = None) -> None:
+        self.marks.append((time.perf_counter(), steps))
+
+    def evaluation(self, steps: int, mean: float, stderr: float) -> None:
+        pass
+
+    def close(self) -> None:
+        pass
+
+
+def calibrate(p: PreparedRun) -> PairCost:
+    """The rates of one agent × env pair, from a short throwaway run."""
     cfg = copy.deepcopy(p.config)
     steps = min(int(cfg["steps"]), CALIBRATION_STEPS)
+    episodes = min(int(cfg["eval"]["episodes"]), CALIBRATION_EPISODES)
+    clock = _Clock()
     with tempfile.TemporaryDirectory() as tmp:
         cfg.update(steps=steps, results_dir=tmp, sweep="calibration")
-        cfg["eval"] = dict(cfg["eval"], every=steps, episodes=1)
+        cfg["eval"] = dict(cfg["eval"], every=steps, episodes=episodes)
         cfg["checkpoint"] = {"every": 0}
-        t0 = time.perf_counter()
-        doc = execute(prepare(cfg))
-        elapsed = doc.get("loop_s") or (time.perf_counter() - t0)
-    return float(elapsed) / steps
+        cfg["log"] = dict(cfg["log"], every=steps)
+        doc = execute(prepare(cfg), clock)
+    cost = measured(doc) or PairCost(0.0)
+    late = [(t, s) for t, s in clock.marks if s >= steps // 2]
+    if len(late) >= 2 and late[-1][1] > late[0][1]:  # after any warm-up (e.g. a replay's)
+        cost.train_s = (late[-1][0] - late[0][0]) / (late[-1][1] - late[0][1])
+    return cost
+
+
+def run_cost(p: PreparedRun, pair: PairCost, startup_s: float) -> float:
+    """Seconds one run is expected to take, start to end of its process."""
+    steps = int(p.config["steps"])
+    ev = p.config["eval"]
+    length = pair.eval_length
+    limit = getattr(p.env, "max_episode_steps", None)
+    if isinstance(limit, int) and limit > 0:
+        length = min(length, limit)
+    eval_steps = _evaluations(steps, int(ev["every"])) * int(ev["episodes"]) * length
+    return startup_s + steps * pair.train_s + eval_steps * pair.eval_s
+
+
+def estimate(to_run: list[PreparedRun], workers: int) -> Estimate:
+    """Every run's expected cost and the sweep's wall time on ``workers`` workers."""
+    costs = load_costs()
+    pairs: dict[str, PairCost] = {}
+    basis = {"earlier runs": 0, "calibration": 0}
+    for p in to_run:
+        key = _key(p)
+        if key in pairs:
+            continue
+        cached = _pair(costs.get(key))
+        if cached is not None:
+            pairs[key] = cached
+            basis["earlier runs"] += 1
+        else:
+            pairs[key] = calibrate(p)
+            basis["calibration"] += 1
+    startup = costs.get(f"{socket.gethostname()}|{STARTUP_KEY}")
+    measured_startup = isinstance(startup, (int, float))
+    startup_s = float(startup) if measured_startup else STARTUP_S
+    per_run = {p.run_id: run_cost(p, pairs[_key(p)], startup_s) for p in to_run}
+    wall = SERVER_START_S + makespan([per_run[p.run_id] for p in to_run], workers)
+    return Estimate(per_run, wall, basis, startup_s, measured_startup, max(1, workers))
 
 
 def estimate_wall_time(to_run, workers: int) -> str:
     """One line: the sweep's size and its estimated wall time, with where that came from."""
-    costs = load_costs()
-    per_pair: dict[str, float] = {}
-    sources = {"earlier runs": 0, "calibration": 0}
-    for p in to_run:
-        key = _key(p)
-        if key in per_pair:
-            continue
-        if key in costs:
-            per_pair[key] = costs[key]
-            sources["earlier runs"] += 1
-        else:
-            per_pair[key] = calibrate(p)
-            sources["calibration"] += 1
-    work = sorted((per_pair[_key(p)] * int(p.config["steps"]) + STARTUP_S for p in to_run),
-                  reverse=True)
-    lanes = [0.0] * max(1, workers)
-    for w in work:  # longest first onto the least loaded worker
-        lanes[lanes.index(min(lanes))] += w
-    where = ", ".join(f"{n} pair(s) from {s}" for s, n in sources.items() if n)
-    return (f"seedsweep: {len(to_run)} runs on {workers} worker(s): estimated wall time "
-            f"{fmt_eta(max(lanes))} ({where}; {STARTUP_S:.1f} s start-up per run)")
+    return "seedsweep: " + estimate(to_run, workers).line()

@@ -18,9 +18,9 @@ from filelock import FileLock
 from seedsweep.configs.checks import ConfigError
 from seedsweep.runner.execution import records
 from seedsweep.runner.execution.prepare import PreparedRun
-from seedsweep.runner.launch.estimate import estimate_wall_time
+from seedsweep.runner.launch import estimate
 from seedsweep.runner.launch.slurm import run_submitit
-from seedsweep.runner.launch.workers import Outcome, default_workers, run_local
+from seedsweep.runner.launch.workers import Outcome, context, default_workers, run_local
 
 logger = logging.getLogger(__name__)
 
@@ -147,12 +147,18 @@ def run_sweep(planned: list[PreparedRun], overrides: Sequence[str], opts: SweepO
     workers = opts.workers or default_workers()
     logger.info("sweep %s: %d runs — %d complete, %d failed (kept; --retry-failed reruns them), "
                 "%d to run", folder.name, len(planned), len(complete), len(failed), len(to_run))
+    if to_run and opts.launcher == "local":
+        context()  # the run processes' server imports while the estimate calibrates
+    costs = None
     if to_run and opts.estimate:
-        logger.info("%s", estimate_wall_time(
-            to_run, workers if opts.launcher == "local" else len(to_run)))
+        guess = estimate.estimate(to_run, workers if opts.launcher == "local" else len(to_run))
+        logger.info("%s", guess.line())
+        costs = guess.costs
     write_manifest(folder, planned, overrides)
     if opts.launcher == "local":
-        outcome = run_local(to_run, workers, opts)
+        outcome = run_local(to_run, workers, opts, costs=costs)
+        estimate.remember_startup([took - loop for took, loop in outcome.process_s.values()
+                                   if loop is not None])
     else:
         outcome = run_submitit(to_run, opts)
     return summarise(folder, planned, complete, failed, outcome)

@@ -170,15 +170,17 @@ def _worker(config: dict[str, Any], run_id: str, retry_failed: bool, messages,
 
 
 def run_local(planned: list[PreparedRun], workers: int, opts,
-              start_method: str = START_METHOD) -> Outcome:
-    """Run ``planned`` in up to ``workers`` processes; the order is kept."""
+              start_method: str = START_METHOD, costs: dict[str, float] | None = None
+              ) -> Outcome:
+    """Run ``planned`` in up to ``workers`` processes; the order is kept. ``costs``: the
+    estimated seconds of each run, for the live ETA."""
     ctx = context(start_method)
     messages = ctx.Queue()
     pending = list(planned)
     running: dict[str, tuple[Any, PreparedRun]] = {}
     launched: dict[str, float] = {}
     outcome = Outcome()
-    display = SweepProgress(planned, workers, mode=opts.progress)
+    display = SweepProgress(planned, workers, mode=opts.progress, costs=costs)
     try:
         while pending or running:
             while pending and len(running) < workers:
