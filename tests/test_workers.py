@@ -75,3 +75,15 @@ def test_start_up_per_run_is_measured_and_small_from_the_warm_server(tmp_path):
     # a fresh interpreter importing torch alone takes over a second here; 1 s is a loose
     # bound that holds on a loaded machine (common practice, no source)
     assert overhead[1] < 1.0
+
+
+def test_calibration_runs_side_by_side_in_forked_processes(tmp_path):
+    planned = plan(["agent=random", "env=cartpole,acrobot", "seed=0", "steps=600",
+                    "eval.every=600", "eval.episodes=3", f"results_dir={tmp_path}", "sweep=c"],
+                   multirun=True)
+    costs = workers.calibrate_in_workers(planned, 2)
+    assert len(costs) == 2
+    for c in costs:
+        assert c.train_s > 0 and c.eval_s > 0
+        assert 1 <= c.eval_length <= 500  # both envs' gymnasium spec: max_episode_steps 500
+    assert not any(tmp_path.iterdir())  # calibration writes nothing into the sweep's folder

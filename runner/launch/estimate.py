@@ -4,7 +4,7 @@ A run costs its start-up, its training (env steps × seconds per step) and its e
 (evaluations × episodes × expected episode length × seconds per evaluation step). The three
 rates of each agent × env pair come from earlier complete runs on this machine (a small
 cache under ``$SEEDSWEEP_CACHE`` or ``~/.cache/seedsweep``), or else from a short
-calibration run of that pair (its training rate measured over the second half, after any
+calibration run of that pair (its training rate measured over the last 60%, after any
 warm-up, and one evaluation of the planned episodes, whose mean length it takes: an
 untrained policy's, so an estimate from calibration undercounts the evaluations of agents
 whose episodes grow as they learn; the cache, filled by every complete run, does not).
@@ -20,6 +20,7 @@ import socket
 import statistics
 import tempfile
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -30,7 +31,7 @@ from seedsweep.runner.execution.run import execute
 from seedsweep.runner.launch.display import fmt_eta
 from seedsweep.runner.launch.schedule import makespan
 
-CALIBRATION_STEPS = 2000
+CALIBRATION_STEPS = 4000  # past a replay warm-up of 1000 and through whole rollouts of 1024
 CALIBRATION_EPISODES = 10  # at most: enough for a mean episode length
 # per run: a process forked from the warm server, building envs and agent, writing records;
 # median of (process wall time - loop time) over 12 short random-agent runs, measured with
@@ -64,15 +65,17 @@ class Estimate:
     startup_s: float = STARTUP_S
     startup_measured: bool = False
     workers: int = 1
+    totals: tuple[float, float, float] = (0.0, 0.0, 0.0)  # training, evaluation, start-up
 
     def line(self) -> str:
         where = ", ".join(f"{n} agent × env pair(s) from {s}" for s, n in self.basis.items() if n)
         start = ("measured by earlier sweeps here" if self.startup_measured
                  else "this version's default")
+        train, evals, startup = (fmt_eta(x) for x in self.totals)
         return (f"{len(self.costs)} runs on {self.workers} worker(s): estimated wall time "
-                f"{fmt_eta(self.wall_s)} (training + evaluation + {self.startup_s:.2f} s "
-                f"start-up per run, {start}; rates of {where}; runs placed on the workers "
-                "in the planned order)")
+                f"{fmt_eta(self.wall_s)} (run time: training {train}, evaluation {evals}, "
+                f"start-up {startup} at {self.startup_s:.2f} s a run, {start}; rates of "
+                f"{where}; runs placed on the workers in the planned order)")
 
 
 def cache_file() -> Path:
@@ -196,7 +199,7 @@ def calibrate(p: PreparedRun) -> PairCost:
         cfg["log"] = dict(cfg["log"], every=steps)
         doc = execute(prepare(cfg), clock)
     cost = measured(doc) or PairCost(0.0)
-    late = [(t, s) for t, s in clock.marks if s >= steps // 2]
+    late = [(t, s) for t, s in clock.marks if s >= 0.4 * steps]
     if len(late) >= 2 and late[-1][1] > late[0][1]:  # after any warm-up (e.g. a replay's)
         cost.train_s = (late[-1][0] - late[0][0]) / (late[-1][1] - late[0][1])
     return cost
@@ -204,6 +207,11 @@ def calibrate(p: PreparedRun) -> PairCost:
 
 def run_cost(p: PreparedRun, pair: PairCost, startup_s: float) -> float:
     """Seconds one run is expected to take, start to end of its process."""
+    return sum(run_parts(p, pair, startup_s))
+
+
+def run_parts(p: PreparedRun, pair: PairCost, startup_s: float) -> tuple[float, float, float]:
+    """(training, evaluation, start-up) seconds of one run."""
     steps = int(p.config["steps"])
     ev = p.config["eval"]
     length = pair.eval_length
@@ -211,31 +219,46 @@ def run_cost(p: PreparedRun, pair: PairCost, startup_s: float) -> float:
     if isinstance(limit, int) and limit > 0:
         length = min(length, limit)
     eval_steps = _evaluations(steps, int(ev["every"])) * int(ev["episodes"]) * length
-    return startup_s + steps * pair.train_s + eval_steps * pair.eval_s
+    return steps * pair.train_s, eval_steps * pair.eval_s, startup_s
 
 
-def estimate(to_run: list[PreparedRun], workers: int) -> Estimate:
-    """Every run's expected cost and the sweep's wall time on ``workers`` workers."""
+def calibrate_here(planned: list[PreparedRun]) -> list[PairCost]:
+    """Calibrate each pair in this process, one after another."""
+    return [calibrate(p) for p in planned]
+
+
+def estimate(to_run: list[PreparedRun], workers: int,
+             calibrate_all: Callable[[list[PreparedRun]], list[PairCost]] = calibrate_here
+             ) -> Estimate:
+    """Every run's expected cost and the sweep's wall time on ``workers`` workers.
+
+    ``calibrate_all`` measures the pairs the cache does not know; the sweep passes one that
+    runs them on its workers side by side, so they share the machine as the runs will."""
     costs = load_costs()
     pairs: dict[str, PairCost] = {}
     basis = {"earlier runs": 0, "calibration": 0}
+    unknown: dict[str, PreparedRun] = {}
     for p in to_run:
         key = _key(p)
-        if key in pairs:
+        if key in pairs or key in unknown:
             continue
         cached = _pair(costs.get(key))
         if cached is not None:
             pairs[key] = cached
             basis["earlier runs"] += 1
         else:
-            pairs[key] = calibrate(p)
+            unknown[key] = p
             basis["calibration"] += 1
+    if unknown:
+        pairs.update(zip(unknown, calibrate_all(list(unknown.values())), strict=True))
     startup = costs.get(f"{socket.gethostname()}|{STARTUP_KEY}")
     measured_startup = isinstance(startup, (int, float))
     startup_s = float(startup) if measured_startup else STARTUP_S
-    per_run = {p.run_id: run_cost(p, pairs[_key(p)], startup_s) for p in to_run}
+    parts = {p.run_id: run_parts(p, pairs[_key(p)], startup_s) for p in to_run}
+    per_run = {rid: sum(x) for rid, x in parts.items()}
     wall = SERVER_START_S + makespan([per_run[p.run_id] for p in to_run], workers)
-    return Estimate(per_run, wall, basis, startup_s, measured_startup, max(1, workers))
+    totals = tuple(sum(x[i] for x in parts.values()) for i in range(3))
+    return Estimate(per_run, wall, basis, startup_s, measured_startup, max(1, workers), totals)
 
 
 def estimate_wall_time(to_run, workers: int) -> str:

@@ -20,7 +20,13 @@ from seedsweep.runner.execution import records
 from seedsweep.runner.execution.prepare import PreparedRun
 from seedsweep.runner.launch import estimate
 from seedsweep.runner.launch.slurm import run_submitit
-from seedsweep.runner.launch.workers import Outcome, context, default_workers, run_local
+from seedsweep.runner.launch.workers import (
+    Outcome,
+    calibrate_in_workers,
+    context,
+    default_workers,
+    run_local,
+)
 
 logger = logging.getLogger(__name__)
 
@@ -151,7 +157,10 @@ def run_sweep(planned: list[PreparedRun], overrides: Sequence[str], opts: SweepO
         context()  # the run processes' server imports while the estimate calibrates
     costs = None
     if to_run and opts.estimate:
-        guess = estimate.estimate(to_run, workers if opts.launcher == "local" else len(to_run))
+        if opts.launcher == "local":
+            guess = estimate.estimate(to_run, workers, lambda ps: calibrate_in_workers(ps, workers))
+        else:
+            guess = estimate.estimate(to_run, len(to_run))
         logger.info("%s", guess.line())
         costs = guess.costs
     write_manifest(folder, planned, overrides)

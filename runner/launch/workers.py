@@ -16,6 +16,7 @@ stdout/stderr, which may have changed since the server started.
 from __future__ import annotations
 
 import importlib.util
+import json
 import logging
 import multiprocessing as mp
 import multiprocessing.connection as mp_connection
@@ -26,6 +27,7 @@ import pkgutil
 import queue as queue_mod
 import signal
 import sys
+import tempfile
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -156,6 +158,42 @@ class _ParentSide:
         for target, fd in zip((1, 2), fds, strict=True):
             if fd is not None:
                 os.dup2(fd.detach(), target)
+
+
+def calibrate_in_workers(planned: list[PreparedRun], workers: int
+                         ) -> list[estimate.PairCost]:
+    """Calibration runs of the given pairs, up to ``workers`` side by side in forked processes,
+    so they share the machine as the sweep's runs will; a pair whose process fails is
+    calibrated here instead (and raises here, if it must)."""
+    ctx = context()
+    out: list[estimate.PairCost | None] = [None] * len(planned)
+    with tempfile.TemporaryDirectory() as tmp:
+        pending = list(enumerate(planned))
+        running: list[tuple[int, Any]] = []
+        while pending or running:
+            while pending and len(running) < max(1, workers):
+                i, p = pending.pop(0)
+                proc = ctx.Process(target=_calibrate_job,
+                                   args=(p.config, str(Path(tmp) / f"{i}.json"), _ParentSide()),
+                                   name=f"calibrate-{p.run_id}")
+                proc.start()
+                running.append((i, proc))
+            mp_connection.wait([proc.sentinel for _, proc in running], timeout=1.0)
+            for i, proc in [r for r in running if not r[1].is_alive()]:
+                proc.join()
+                running.remove((i, proc))
+                try:
+                    out[i] = estimate.PairCost(**json.loads((Path(tmp) / f"{i}.json").read_text()))
+                except (OSError, ValueError, TypeError):
+                    logger.debug("calibration of %s failed in its process", planned[i].run_id)
+    return [c if c is not None else estimate.calibrate(p)
+            for c, p in zip(out, planned, strict=True)]
+
+
+def _calibrate_job(config: dict[str, Any], path: str, parent: Any = None) -> None:
+    torch.set_num_threads(int(config.get("torch_threads", 1)))
+    cost = estimate.calibrate(prepare(config))
+    Path(path).write_text(json.dumps(cost.as_dict()))
 
 
 def _worker(config: dict[str, Any], run_id: str, retry_failed: bool, messages,
