@@ -19,6 +19,7 @@ quoting it)::
 from __future__ import annotations
 
 import argparse
+import json
 import os
 import re
 import statistics
@@ -69,6 +70,7 @@ def main() -> None:
                 elif (m := ETA.search(line)) and line.startswith("seedsweep: ") and "ended" in line:
                     etas.append((now, seconds(m), bool(m.group(4))))
         end = time.monotonic()
+        docs = [json.loads(f.read_text()) for f in Path(tmp, "results").glob("*/*/run.json")]
     if proc.returncode != 0 or estimated is None or estimated_at is None:
         raise SystemExit(f"the sweep ended with status {proc.returncode}; estimate {estimated}")
     actual = end - estimated_at
@@ -76,6 +78,10 @@ def main() -> None:
           f" | whole command {end - start:.0f} s")
     print(f"pre-launch estimate {estimated} s vs actual {actual:.0f} s after it -> "
           f"{estimated / actual:.2f}x ({100 * (estimated - actual) / actual:+.0f}%)")
+    train = sum(d.get("loop_s", 0) - d.get("eval_s", 0) for d in docs)
+    evals = sum(d.get("eval_s", 0) for d in docs)
+    print(f"actual run time: training {train:.0f} s, evaluation {evals:.0f} s (sum over "
+          f"{len(docs)} runs of loop_s - eval_s and eval_s)")
     measured = [(t, eta) for t, eta, pre in etas if not pre]
     if measured:
         errs = [100 * (eta - (end - t)) / max(1.0, end - t) for t, eta in measured]
