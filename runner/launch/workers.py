@@ -5,8 +5,8 @@ process that dies (a crash, the OOM killer, SIGKILL) is seen by the parent, whic
 that run failed and goes on with the others.
 
 Run processes are forked from a warm server (multiprocessing's forkserver) that imported
-numpy, torch, gymnasium and seedsweep's agents, envs and execution modules once, with one
-torch thread set; so a run's start-up is a fork, not an interpreter plus imports (seconds).
+numpy, torch, gymnasium and every seedsweep module once, with one torch thread set; so a
+run's start-up is a fork, not an interpreter plus imports (seconds).
 The server only imports: it never steps an env or draws a random number, and every run
 seeds all its randomness itself from its seed, so a run gets the same bytes as from a fresh
 interpreter. Each child takes the parent's current working directory, environment and
@@ -46,10 +46,14 @@ logger = logging.getLogger(__name__)
 EXIT_BUSY = 3
 START_METHOD = "forkserver"  # "spawn": a fresh interpreter per run (seconds of imports each)
 # imported once by the forkserver; the first one sets one torch thread before anything runs
-PRELOAD_FIRST = ("seedsweep.runner.launch.preload", "numpy", "torch", "gymnasium",
+# (torch._dynamo: torch's optimisers import it on first use, about 1 s with sympy)
+PRELOAD_FIRST = ("seedsweep.runner.launch.preload", "numpy", "torch", "torch._dynamo",
+                 "gymnasium",
                  "gymnasium.envs.classic_control", "gymnasium.envs.toy_text",
                  "gymnasium.envs.box2d")
-PRELOAD_PACKAGES = ("seedsweep.agents", "seedsweep.envs", "seedsweep.runner.execution")
+# all of seedsweep: a child re-runs the parent's main module (the command line's, which
+# imports every command), and with everything preloaded that costs no import
+PRELOAD_PACKAGES = ("seedsweep.configs", "seedsweep.agents", "seedsweep.envs", "seedsweep.runner")
 
 
 @dataclass
@@ -102,9 +106,8 @@ def run_job(config: dict[str, Any], retry_failed: bool = False,
 
 
 def preload_modules() -> list[str]:
-    """What the forkserver imports: the heavy libraries, then every module of seedsweep's
-    agents, envs and execution packages (found on disk, nothing agent-specific), then this
-    module (the processes' entry point)."""
+    """What the forkserver imports: the heavy libraries, then every module of seedsweep
+    (found on disk, nothing agent-specific), this module (the processes' entry point) last."""
     names = list(PRELOAD_FIRST)
     for package in PRELOAD_PACKAGES:
         names.extend(_modules_under(package))
