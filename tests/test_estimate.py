@@ -73,7 +73,7 @@ def test_line_mode_prints_one_line_per_run_and_a_status_line_at_most_every_30_s(
     out = io.StringIO()
     sp = SweepProgress(ten_runs, 2, mode="lines", stream=out)
     ids = [p.run_id for p in ten_runs]
-    for k, rid in enumerate(ids):
+    for rid in ids:
         sp.started(rid)
         sp.message({"run_id": rid, "steps": 500, "rate": 1000.0, "eval": None})
         clock.now += 4.0

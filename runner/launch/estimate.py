@@ -38,7 +38,7 @@ CALIBRATION_EPISODES = 10  # at most: enough for a mean episode length
 # benchmarks/startup.py on 2 cores at load ~2 (0.07 s); DQN runs pay a little more (replay
 # buffer, checkpoint). Superseded by the machine's own measurement once a sweep ran.
 STARTUP_S = 0.15
-SERVER_START_S = 3.0  # once per sweep: the server's imports (torch, gymnasium, seedsweep): 3.3 s at load 5
+SERVER_START_S = 3.0  # once a sweep: the server imports torch, gymnasium, seedsweep (3.3 s, load 5)
 STARTUP_KEY = "startup"
 
 
