@@ -34,9 +34,9 @@ from seedsweep.runner.launch.schedule import makespan
 CALIBRATION_STEPS = 4000  # past a replay warm-up of 1000 and through whole rollouts of 1024
 CALIBRATION_EPISODES = 10  # at most: enough for a mean episode length
 # per run: a process forked from the warm server, building envs and agent, writing records;
-# median of (process wall time - loop time) over 12 short random-agent runs, measured with
-# benchmarks/startup.py on 2 cores at load ~2 (0.07 s); DQN runs pay a little more (replay
-# buffer, checkpoint). Superseded by the machine's own measurement once a sweep ran.
+# median of (process wall time - loop time): 0.147 s over 16 short random-agent runs, 0.155 s
+# over 12 DQN runs (benchmarks/startup.py, 2 cores, load 5; spawn: 1.75 s and 2.87 s). A
+# sweep measures it on its machine and the cache keeps it for later estimates.
 STARTUP_S = 0.15
 SERVER_START_S = 3.0  # once a sweep: the server imports torch, gymnasium, seedsweep (3.3 s, load 5)
 STARTUP_KEY = "startup"
