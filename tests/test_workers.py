@@ -46,7 +46,7 @@ def test_a_run_takes_the_parents_current_folder_and_environment(tmp_path, monkey
     outcome = workers.run_local(planned, 1, QUIET)
     assert outcome.complete == 1
     assert (tmp_path / "relative" / "w" / planned[0].run_id / "run.json").is_file()
-    assert (tmp_path / "cache" / "step_costs.json").is_file()  # the run remembered its cost
+    assert (tmp_path / "cache" / "run_costs.json").is_file()  # the run remembered its cost
 
 
 def test_the_server_preloads_the_heavy_libraries_and_every_seedsweep_module():

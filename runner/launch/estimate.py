@@ -80,7 +80,9 @@ class Estimate:
 
 def cache_file() -> Path:
     root = Path(os.environ.get("SEEDSWEEP_CACHE", Path.home() / ".cache" / "seedsweep"))
-    return root / "step_costs.json"
+    # not step_costs.json: that file of earlier versions holds one number per pair, and
+    # they fail on an entry of this richer format
+    return root / "run_costs.json"
 
 
 def _key(p) -> str:

@@ -112,7 +112,10 @@ def preload_modules() -> list[str]:
     for package in PRELOAD_PACKAGES:
         names.extend(_modules_under(package))
     names.append(__name__)
-    return names
+    # not the parent's main module (``python -m seedsweep...``): a child runs it anew under
+    # another name, which runpy warns about when the module was imported already
+    main = getattr(sys.modules.get("__main__"), "__spec__", None)
+    return [n for n in names if n != getattr(main, "name", None)]
 
 
 def _modules_under(package: str) -> list[str]:
