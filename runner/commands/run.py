@@ -18,6 +18,7 @@ from seedsweep.runner.launch.display import RunProgress
 from seedsweep.runner.launch.plan import check_plan, plan
 from seedsweep.runner.launch.plan_files import expand_plan, find
 from seedsweep.runner.launch.sweep import SweepOptions, check_code_version, run_sweep
+from seedsweep.runner.launch.workers import context
 
 logger = logging.getLogger(__name__)
 
@@ -117,6 +118,8 @@ def main(argv: Sequence[str]) -> int:
 
 def _run(argv: Sequence[str]) -> int:
     opts = parse_options(argv)
+    if (opts.plan or opts.multirun) and opts.launcher == "local":
+        context()  # the run processes' server imports while the sweep is planned
     if opts.plan:
         groups = expand_plan(find(opts.plan, opts.config_dir), opts.overrides)
         planned = check_plan([p for g in groups
