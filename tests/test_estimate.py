@@ -125,3 +125,12 @@ def test_estimate_calibrates_then_uses_earlier_runs_and_says_which(ten_runs, tmp
     assert second.startup_s == pytest.approx(0.3) and "measured by earlier sweeps" in second.line()
     # 10 runs of 0.3 + 1.0 + 2 x 10 x 20 x 1e-4 = 1.34 s on 2 lanes, plus the server's start
     assert second.wall_s == pytest.approx(estimate.SERVER_START_S + 5 * 1.34)
+
+
+def test_a_single_runs_lines_never_say_zero_steps_per_second():
+    out = io.StringIO()
+    progress = display.RunProgress("r", 1000, mode="lines", stream=out, line_every_s=0.0)
+    progress.update(0, 0.0)  # nothing measured yet: no line
+    assert out.getvalue() == ""
+    progress.update(500, 250.0)
+    assert "250 steps/s | ETA 0:00:02" in out.getvalue()  # (1000 - 500) / 250 = 2 s

@@ -52,10 +52,10 @@ class RunProgress:
             self._bar = Progress(
                 TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
                 TextColumn("{task.fields[eval]}"), TextColumn("{task.fields[rate]}"),
-                TextColumn("ETA {task.fields[eta]}"),
+                TextColumn("{task.fields[eta]}"),
                 console=Console(file=self.stream), transient=True,
             )
-            self._task = self._bar.add_task(label, total=total, eval=self._eval, rate="", eta="?")
+            self._task = self._bar.add_task(label, total=total, eval=self._eval, rate="", eta="")
             self._bar.start()
 
     def rate(self, steps: int) -> float:
@@ -67,9 +67,13 @@ class RunProgress:
             return
         rate = self.rate(steps) if steps_per_s is None else steps_per_s
         eta = (self.total - steps) / rate if rate > 0 else math.inf
+        known = rate > 0 and math.isfinite(eta)  # never "0 steps/s | ETA ?"
         if self._bar is not None:
             self._bar.update(self._task, completed=steps, eval=self._eval,
-                             rate=f"{rate:,.0f} steps/s", eta=fmt_eta(eta))
+                             rate=f"{rate:,.0f} steps/s" if rate > 0 else "",
+                             eta=f"ETA {fmt_eta(eta)}" if known else "")
+            return
+        if not known and steps < self.total:
             return
         now = time.perf_counter()
         if now - self._last_line >= self.line_every_s or steps >= self.total:
