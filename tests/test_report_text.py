@@ -177,8 +177,8 @@ def test_tuning_records_and_notes_are_shown_when_present(tmp_path):
     opts = build_parser().parse_args([str(sweep), *FAST, "--candidate", "alpha"])
     data = options.with_random_scores(lambda: compute_report(opts))
     summary = report_files.summary_dict(data)
-    summary["agents"]["alpha"]["tuning"] = {"trials": 20, "steps": 50000, "envs": 2,
-                                            "seeds": 3}
+    summary["agents"]["alpha"]["tuning"] = {"trials": 20, "steps": 50000, "envs": ["a", "b"],
+                                            "seeds_per_env": 3}
     summary["agents"]["beta"]["tuning"] = None
     page = html.render(data, summary, {})
     assert "tuned: 20 trials × 50,000 steps × 2 envs × 3 seeds" in page

@@ -107,6 +107,8 @@ def print_summary(data: ReportData, target: Path, comparison: Any = None) -> Non
     doc = comparison.doc if comparison is not None else None
     if doc is not None:
         console.print()
+        if doc.get("tuning_note"):
+            _say(console, f"warning: {doc['tuning_note']}", "bold")
         for c in doc["comparisons"]:
             _say(console, f"{doc['candidate']} vs {c['baseline']}: "
                  f"{text.VERDICT_SIGNS.get(c['verdict'], '')} {c['verdict']}", "bold")
