@@ -106,7 +106,7 @@ def test_terminal_says_what_the_numbers_mean_and_what_to_do_next(tmp_path, capsy
 def test_comparison_ends_with_how_many_seeds_to_plan(tmp_path, capsys):
     sweep = make_sweep(tmp_path)
     out, page, _ = _report(sweep, capsys, "--candidate", "alpha")
-    assert "alpha vs beta:" in out
+    assert "vs beta: " in out and "evidence: alpha 0.05" in out  # the verdict table
     verdict = json.loads((sweep / "report" / "compare.json").read_text())["comparisons"][0]
     planned = f"seedsweep plan-seeds {sweep} --candidate alpha --baseline beta" in out
     # a settled verdict needs no more seeds; an open one says how to plan them

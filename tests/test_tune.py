@@ -31,8 +31,9 @@ from optuna.storages.journal import JournalFileBackend
 from scipy.stats import trim_mean
 from seedsweep.runner.commands.main import main
 from seedsweep.runner.execution.config import compose
+from seedsweep.runner.execution.prepare import load_agent_class
 from seedsweep.runner.execution.seeding import derive_seeds
-from seedsweep.runner.launch import api
+from seedsweep.runner.launch import api, search_space
 
 ROOT = Path(__file__).resolve().parent.parent
 TINY = """name: tiny
@@ -127,6 +128,18 @@ def test_bad_search_spaces_are_refused_with_one_line(tmp_path, search, field, wo
     assert err.count("\n") == 1 and err.startswith(f"seedsweep: error: {field}: "), err
     assert words in err
     assert not (tmp_path / "results").exists()  # nothing written
+
+
+@pytest.mark.parametrize("path", sorted((ROOT / "configs" / "agent").glob("*.yaml")),
+                         ids=lambda p: p.stem)
+def test_every_shipped_search_section_is_accepted_by_its_agent(path):
+    """Each bound and choice of a shipped search: section builds the agent's Config (its own
+    range checks), so a study never fails on a trial the space allows."""
+    doc = yaml.safe_load(path.read_text())
+    if "search" not in doc:
+        pytest.skip(f"{path.stem} has nothing to tune")
+    space = search_space.parse(path.stem, doc, load_agent_class(doc["entry"]), str(path))
+    assert [d.key for d in space.dimensions] == list(doc["search"])
 
 
 def test_an_agent_without_a_search_section_and_bad_options_are_refused(tmp_path):
