@@ -56,9 +56,10 @@ class SensitivityTable:
 
     @property
     def log_axis(self) -> bool:
-        """A numeric key whose values span more than a factor of 10 is shown on a log axis."""
+        """A numeric key whose values span a factor of 10 or more is shown on a log axis (with
+        a rounding margin: 0.003 / 0.0003 is 10.000000000000002 in floating point)."""
         values = [float(r.value) for r in self.rows] if self.numeric else []
-        return bool(values) and min(values) > 0 and max(values) / min(values) > 10
+        return bool(values) and min(values) > 0 and max(values) / min(values) >= 10 - 1e-9
 
     @property
     def title(self) -> str:

@@ -19,7 +19,7 @@ from seedsweep.configs.checks import ConfigError
 from seedsweep.runner.execution import records
 from seedsweep.runner.execution.prepare import PreparedRun
 from seedsweep.runner.launch.estimate import estimate_wall_time
-from seedsweep.runner.launch.slurm import run_submitit
+from seedsweep.runner.launch.slurm import check_jobs_root, run_submitit
 from seedsweep.runner.launch.workers import Outcome, default_workers, run_local
 
 logger = logging.getLogger(__name__)
@@ -150,6 +150,8 @@ def run_sweep(planned: list[PreparedRun], overrides: Sequence[str], opts: SweepO
     if to_run and opts.estimate:
         logger.info("%s", estimate_wall_time(
             to_run, workers if opts.launcher == "local" else len(to_run)))
+    if to_run and opts.launcher != "local":
+        check_jobs_root()  # refused before anything is written
     write_manifest(folder, planned, overrides)
     if opts.launcher == "local":
         outcome = run_local(to_run, workers, opts)
@@ -166,4 +168,10 @@ def summarise(folder: Path, planned: list[PreparedRun], complete: list, failed: 
                 folder.name, done, len(planned), bad, len(outcome.busy), folder)
     for run_id, reason in outcome.failed:
         logger.info("  failed: %s: %s", run_id, reason)
+    if done == len(planned):
+        logger.info("next: seedsweep report %s (--candidate NAME adds the verdicts of an agent "
+                    "against the others)", folder)
+    elif bad:
+        logger.info("next: seedsweep status %s shows why; the same command with "
+                    "--retry-failed reruns the failed runs", folder)
     return 0 if done == len(planned) else 1

@@ -205,8 +205,8 @@ def print_verdicts(console: Console, doc: dict[str, Any]) -> None:
     console.print()
     _say(console, f"per env: IQM of raw scores over seeds ({conf}), (seeds)", "bold")
     env_flags: list[str] = []
-    envs = _table(("env", "left"), ("baseline", "left"), (cand, "right"),
-                  ("baseline's\nscore", "right"), (f"P({cand} >\nbaseline)", "right"))
+    envs = _table(("env", "left"), ("baseline", "left"), (f"{cand}\nscore", "right"),
+                  ("baseline\nscore", "right"), (f"P({cand} >\nbaseline)", "right"))
     for c in doc["comparisons"]:
         for env, cell in c["per_env"].items():
             x, y = cell["raw_iqm"]["candidate"], cell["raw_iqm"]["baseline"]
