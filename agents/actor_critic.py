@@ -23,58 +23,22 @@ shape (:mod:`seedsweep.agents.common.rollouts`, shared with PPO).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any, Literal
+from typing import Any
 
 import numpy as np
 import torch
-from gymnasium import spaces
-from seedsweep.agents.base import Agent, Step, require
-from seedsweep.agents.common.distributions import (
-    ActionSampler,
-    PolicyHead,
-    PolicyNetworkConfig,
-    policy_supports,
-)
-from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp_bytes
-from seedsweep.agents.common.optim import adam
+from seedsweep.agents.common.networks import flat_dim, mlp_bytes
 from seedsweep.agents.common.returns import gae, nstep_returns
-from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
-from seedsweep.agents.common.rollouts import PolicyValueNets, Rollout
+from seedsweep.agents.common.rollouts import RolloutAgent, RolloutConfig
 
 
-class ActorCritic(Agent):
-    action_spaces = (spaces.Discrete, spaces.Box)
-
-    @classmethod
-    def supports(cls, action_space: spaces.Space) -> bool:
-        return policy_supports(action_space)
-
+class ActorCritic(RolloutAgent):
     @dataclass
-    class Config(PolicyNetworkConfig):
-        gamma: float = 0.99
-        num_envs: int = 8
-        vector_mode: Literal["sync", "async"] = "sync"
-        rollout_steps: int = 16
-        advantage_lambda: float = 0.95
-        lr: float = 0.002
-        adam_eps: float = 1e-5
-        value_weight: float = 0.5
-        entropy_weight: float = 0.0
-        grad_clip_norm: float | None = 0.5
-        standardize: Literal["none", "advantages"] = "none"
-        shared_torso: bool = False
+    class Config(RolloutConfig):
+        """The shared rollout settings (:class:`RolloutConfig`), with actor-critic's defaults."""
 
         def __post_init__(self) -> None:
-            require("gamma", self.gamma, 0.0 < self.gamma <= 1.0, "in (0, 1]")
-            require("num_envs", self.num_envs, self.num_envs >= 1, ">= 1")
-            require("rollout_steps", self.rollout_steps, self.rollout_steps >= 1, ">= 1")
-            require("advantage_lambda", self.advantage_lambda,
-                    0.0 <= self.advantage_lambda <= 1.0, "in [0, 1]")
-            require("lr", self.lr, self.lr > 0, "> 0")
-            require("adam_eps", self.adam_eps, self.adam_eps > 0, "> 0")
-            require("value_weight", self.value_weight, self.value_weight >= 0, ">= 0")
-            require("entropy_weight", self.entropy_weight, self.entropy_weight >= 0, ">= 0")
-            self.check_network()
+            self.check_rollout()
 
     @classmethod
     def memory_bytes(cls, config, observation_space, action_space) -> dict[str, int]:
@@ -84,39 +48,6 @@ class ActorCritic(Agent):
         # policy and value networks, each with gradients and Adam's two moments
         return {"rollout_steps": config.rollout_steps * per_step,
                 "hidden": 2 * mlp_bytes(obs_dim, config.hidden, out + 1, copies=4)}
-
-    def __init__(self, observation_space, action_space, config, seed):
-        super().__init__(observation_space, action_space, config, seed)
-        c = config
-        self.obs_dim = flat_dim(observation_space)
-        self.rng, self.gen = make_generators(seed)
-        self.head = PolicyHead(action_space, c.gaussian_std, c.gaussian_log_std_start,
-                               c.gaussian_squash)
-        self.nets = PolicyValueNets(self.obs_dim, self.head, c, self.gen)
-        self.net, self.value_net = self.nets.net, self.nets.value_net
-        self.policy_params, self.params = self.nets.policy_params, self.nets.params
-        self._np_policy = NumpyMLP(self.net)
-        self.opt = adam(self.params, c.lr, c.adam_eps)
-        self.sampler = ActionSampler(self.head, self.gen)
-        self.rollout = Rollout(c.rollout_steps, c.num_envs, self.obs_dim, self.head,
-                               self.sampler)
-        self.updates = 0
-
-    @property
-    def _t(self) -> int:
-        return self.rollout.t
-
-    # -- acting -----------------------------------------------------------------------------
-    def act(self, obs: np.ndarray, explore: bool) -> np.ndarray:
-        out = self._np_policy(np.asarray(obs, dtype=np.float32).reshape(len(obs), -1))
-        return self.sampler.act(out[:, : self.head.out_dim], explore)
-
-    # -- learning ---------------------------------------------------------------------------
-    def observe(self, step: Step) -> dict[str, float]:
-        self.rollout.add(step)
-        if self.rollout.full:
-            return self._update()
-        return {}
 
     def rollout_batch(self) -> dict[str, Any]:
         """The stored rollout (first ``t`` steps) flattened, with advantages and returns."""
@@ -160,22 +91,3 @@ class ActorCritic(Agent):
         self.opt.step()
         self.updates += 1
         return scalars
-
-    # -- state ------------------------------------------------------------------------------
-    def state_dict(self) -> dict[str, Any]:
-        return {
-            **self.nets.state_dict(),
-            "opt": self.opt.state_dict(),
-            "rng": generator_states(self.rng, self.gen),
-            "sampler": self.sampler.state_dict(),
-            **self.rollout.state_dict(),
-            "updates": self.updates,
-        }
-
-    def load_state_dict(self, state: dict[str, Any]) -> None:
-        self.nets.load_state_dict(state)
-        self.opt.load_state_dict(state["opt"])
-        load_generator_states(state["rng"], self.rng, self.gen)
-        self.sampler.load_state_dict(state["sampler"])
-        self.rollout.load_state_dict(state)
-        self.updates = int(state["updates"])

@@ -44,54 +44,25 @@ from typing import Any, Literal
 
 import numpy as np
 import torch
-from gymnasium import spaces
-from seedsweep.agents.base import Agent, Step, require
-from seedsweep.agents.common.distributions import (
-    ActionSampler,
-    PolicyHead,
-    PolicyNetworkConfig,
-    policy_supports,
-)
-from seedsweep.agents.common.networks import NumpyMLP, flat_dim
-from seedsweep.agents.common.optim import adam
+from seedsweep.agents.base import Step, require
 from seedsweep.agents.common.returns import gae
-from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
-from seedsweep.agents.common.rollouts import PolicyValueNets, Rollout
+from seedsweep.agents.common.rollouts import RolloutAgent, RolloutConfig
 
 
-class PPO(Agent):
-    action_spaces = (spaces.Discrete, spaces.Box)
-
-    @classmethod
-    def supports(cls, action_space: spaces.Space) -> bool:
-        return policy_supports(action_space)
-
+class PPO(RolloutAgent):
     @dataclass
-    class Config(PolicyNetworkConfig):
-        gamma: float = 0.99
-        num_envs: int = 8
-        vector_mode: Literal["sync", "async"] = "sync"
+    class Config(RolloutConfig):
         rollout_steps: int = 128
-        advantage_lambda: float = 0.95
         passes_per_rollout: int = 8
         minibatches_per_pass: int = 8
         ratio_clip: float = 0.2
         value_clip: float | None = None
         lr: float = 0.003
         lr_decay_steps: int | None = None
-        adam_eps: float = 1e-5
-        value_weight: float = 0.5
-        entropy_weight: float = 0.0
-        grad_clip_norm: float | None = 0.5
         standardize: Literal["none", "advantages"] = "advantages"
-        shared_torso: bool = False
 
         def __post_init__(self) -> None:
-            require("gamma", self.gamma, 0.0 < self.gamma <= 1.0, "in (0, 1]")
-            require("num_envs", self.num_envs, self.num_envs >= 1, ">= 1")
-            require("rollout_steps", self.rollout_steps, self.rollout_steps >= 1, ">= 1")
-            require("advantage_lambda", self.advantage_lambda,
-                    0.0 <= self.advantage_lambda <= 1.0, "in [0, 1]")
+            self.check_rollout()
             require("passes_per_rollout", self.passes_per_rollout,
                     self.passes_per_rollout >= 1, ">= 1")
             samples = self.rollout_steps * max(self.num_envs, 1)
@@ -102,59 +73,17 @@ class PPO(Agent):
             require("value_clip", self.value_clip,
                     self.value_clip is None or _finite_above(self.value_clip, 0.0),
                     "a finite number > 0, or null (no value clipping)")
-            require("lr", self.lr, _finite_above(self.lr, 0.0), "a finite number > 0")
             require("lr_decay_steps", self.lr_decay_steps,
                     self.lr_decay_steps is None or self.lr_decay_steps >= 1,
                     ">= 1 env steps, or null (constant lr)")
-            require("adam_eps", self.adam_eps, _finite_above(self.adam_eps, 0.0),
-                    "a finite number > 0")
-            require("value_weight", self.value_weight,
-                    math.isfinite(self.value_weight) and self.value_weight >= 0,
-                    "a finite number >= 0")
-            require("entropy_weight", self.entropy_weight,
-                    math.isfinite(self.entropy_weight) and self.entropy_weight >= 0,
-                    "a finite number >= 0")
-            require("grad_clip_norm", self.grad_clip_norm,
-                    self.grad_clip_norm is None or _finite_above(self.grad_clip_norm, 0.0),
-                    "a finite number > 0, or null (no clipping)")
-            require("gaussian_log_std_start", self.gaussian_log_std_start,
-                    math.isfinite(self.gaussian_log_std_start), "a finite number")
-            self.check_network()
 
     def __init__(self, observation_space, action_space, config, seed):
         super().__init__(observation_space, action_space, config, seed)
-        c = config
-        self.obs_dim = flat_dim(observation_space)
-        self.rng, self.gen = make_generators(seed)
-        self.head = PolicyHead(action_space, c.gaussian_std, c.gaussian_log_std_start,
-                               c.gaussian_squash)
-        self.nets = PolicyValueNets(self.obs_dim, self.head, c, self.gen)
-        self.net, self.value_net = self.nets.net, self.nets.value_net
-        self.policy_params, self.params = self.nets.policy_params, self.nets.params
-        self._np_policy = NumpyMLP(self.net)
-        self.opt = adam(self.params, c.lr, c.adam_eps)
-        self.sampler = ActionSampler(self.head, self.gen)
-        self.rollout = Rollout(c.rollout_steps, c.num_envs, self.obs_dim, self.head,
-                               self.sampler)
-        self.updates = 0
         self.env_steps = 0  # observed by this agent, all envs: the lr schedule's clock
 
-    @property
-    def _t(self) -> int:
-        return self.rollout.t
-
-    # -- acting -----------------------------------------------------------------------------
-    def act(self, obs: np.ndarray, explore: bool) -> np.ndarray:
-        out = self._np_policy(np.asarray(obs, dtype=np.float32).reshape(len(obs), -1))
-        return self.sampler.act(out[:, : self.head.out_dim], explore)
-
-    # -- learning ---------------------------------------------------------------------------
     def observe(self, step: Step) -> dict[str, float]:
-        self.rollout.add(step)
         self.env_steps += self.config.num_envs
-        if self.rollout.full:
-            return self._update()
-        return {}
+        return super().observe(step)
 
     def current_lr(self) -> float:
         """The learning rate of the next update (linear decay over env steps, if set)."""
@@ -242,23 +171,10 @@ class PPO(Agent):
         return dist.log_prob(batch["actions"][idx], pre), dist.entropy(), values
 
     def state_dict(self) -> dict[str, Any]:
-        return {
-            **self.nets.state_dict(),
-            "opt": self.opt.state_dict(),
-            "rng": generator_states(self.rng, self.gen),
-            "sampler": self.sampler.state_dict(),
-            **self.rollout.state_dict(),
-            "updates": self.updates,
-            "env_steps": self.env_steps,
-        }
+        return {**super().state_dict(), "env_steps": self.env_steps}
 
     def load_state_dict(self, state: dict[str, Any]) -> None:
-        self.nets.load_state_dict(state)
-        self.opt.load_state_dict(state["opt"])
-        load_generator_states(state["rng"], self.rng, self.gen)
-        self.sampler.load_state_dict(state["sampler"])
-        self.rollout.load_state_dict(state)
-        self.updates = int(state["updates"])
+        super().load_state_dict(state)
         self.env_steps = int(state["env_steps"])
 
 

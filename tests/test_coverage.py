@@ -21,7 +21,8 @@ def test_the_note_uses_the_nearest_smaller_measured_design():
     assert (n, k) == (3, 1)  # 4 seeds on 2 envs: measured 3 seeds on 1 env, never larger
     assert (low, high) == (0.743, 0.762)
     note = coverage.coverage_note(4, 2)
-    assert "74%-76%" in note and "not larger than 4 on 2" in note
+    assert "74%-76%" in note and "at or below yours, 4 seeds per env on 2 envs" in note
+    assert "90%-90%" not in coverage.coverage_note(5, 2)  # equal ends are written once
 
 
 def test_no_note_beyond_the_table_or_at_another_level():

@@ -322,3 +322,16 @@ def test_job_files_go_to_a_private_folder_outside_the_results(tmp_path, monkeypa
     with pytest.raises(ConfigError, match="writable by you only") as err:
         slurm.jobs_folder(results)
     assert err.value.field == "SEEDSWEEP_JOBS"
+
+
+def test_a_public_job_folder_is_refused_before_the_sweep_writes_anything(tmp_path, monkeypatch,
+                                                                         capsys):
+    jobs = tmp_path / "jobs"
+    jobs.mkdir(mode=0o700)
+    jobs.chmod(0o777)  # writable by anyone: the pickled jobs could be replaced
+    monkeypatch.setenv("SEEDSWEEP_JOBS", str(jobs))
+    code = main(["run", "-m", "agent=random", "env=cartpole", "seed=0,1", "steps=200",
+                 "sweep=sub", "--launcher", "submitit", f"results_dir={tmp_path / 'results'}"])
+    err = capsys.readouterr().err
+    assert code == 2 and "seedsweep: error: SEEDSWEEP_JOBS:" in err
+    assert not (tmp_path / "results").exists()  # no sweep.json, no run folder

@@ -106,7 +106,7 @@ def test_terminal_says_what_the_numbers_mean_and_what_to_do_next(tmp_path, capsy
 def test_comparison_ends_with_how_many_seeds_to_plan(tmp_path, capsys):
     sweep = make_sweep(tmp_path)
     out, page, _ = _report(sweep, capsys, "--candidate", "alpha")
-    assert "alpha vs beta:" in out
+    assert "vs beta: " in out and "evidence: alpha 0.05" in out  # the verdict table
     verdict = json.loads((sweep / "report" / "compare.json").read_text())["comparisons"][0]
     planned = f"seedsweep plan-seeds {sweep} --candidate alpha --baseline beta" in out
     # a settled verdict needs no more seeds; an open one says how to plan them
@@ -177,8 +177,8 @@ def test_tuning_records_and_notes_are_shown_when_present(tmp_path):
     opts = build_parser().parse_args([str(sweep), *FAST, "--candidate", "alpha"])
     data = options.with_random_scores(lambda: compute_report(opts))
     summary = report_files.summary_dict(data)
-    summary["agents"]["alpha"]["tuning"] = {"trials": 20, "steps": 50000, "envs": 2,
-                                            "seeds": 3}
+    summary["agents"]["alpha"]["tuning"] = {"trials": 20, "steps": 50000, "envs": ["a", "b"],
+                                            "seeds_per_env": 3}
     summary["agents"]["beta"]["tuning"] = None
     page = html.render(data, summary, {})
     assert "tuned: 20 trials × 50,000 steps × 2 envs × 3 seeds" in page

@@ -66,7 +66,8 @@ def test_train_and_scalar_logs(run_dir):
 
 def test_config_checkpoint_and_tensorboard(run_dir):
     cfg = yaml.safe_load((run_dir / "config.yaml").read_text())
-    assert cfg["agent"]["lr"] == 0.0005 and cfg["env"]["id"] == "CartPole-v1"
+    # 0.00025: per_env.cartpole in configs/agent/dqn.yaml
+    assert cfg["agent"]["lr"] == 0.00025 and cfg["env"]["id"] == "CartPole-v1"
     state = torch.load(run_dir / "checkpoint.pt", weights_only=True)
     assert {"agent", "loop"} <= set(state) and "q" in state["agent"]
     from tensorboard.backend.event_processing.event_accumulator import EventAccumulator

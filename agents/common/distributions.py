@@ -293,6 +293,8 @@ class PolicyNetworkConfig:
 
     def check_network(self) -> None:
         require("grad_clip_norm", self.grad_clip_norm,
-                self.grad_clip_norm is None or self.grad_clip_norm > 0, "> 0 or null")
+                self.grad_clip_norm is None
+                or (math.isfinite(self.grad_clip_norm) and self.grad_clip_norm > 0),
+                "a finite number > 0, or null (no clipping)")
         require("hidden", self.hidden, all(h >= 1 for h in self.hidden),
                 "a list of layer widths >= 1")

@@ -1,5 +1,6 @@
-"""What the rollout-based policy-gradient agents (actor-critic, PPO) share: the policy and
-value networks (two networks, or one with both outputs) and a preallocated rollout store.
+"""What the rollout-based policy-gradient agents (actor-critic, PPO) share: their common
+settings, the policy and value networks (two networks, or one with both outputs) and a
+preallocated rollout store.
 
 Written once so the two agents cannot drift apart in how they build, score, clip, store,
 bootstrap and checkpoint.
@@ -7,19 +8,25 @@ bootstrap and checkpoint.
 
 from __future__ import annotations
 
-from typing import Any
+import math
+from dataclasses import dataclass
+from typing import Any, Literal
 
 import numpy as np
 import torch
-from seedsweep.agents.base import Step
+from gymnasium import spaces
+from seedsweep.agents.base import Agent, Step, require
 from seedsweep.agents.common.distributions import (
     POLICY_OUT_GAIN,
     VALUE_OUT_GAIN,
     ActionSampler,
     PolicyHead,
+    PolicyNetworkConfig,
+    policy_supports,
 )
-from seedsweep.agents.common.networks import mlp
-from seedsweep.agents.common.optim import clip_grad_norm
+from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp
+from seedsweep.agents.common.optim import adam, clip_grad_norm
+from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
 from torch import nn
 
 
@@ -28,6 +35,49 @@ def as_actions(actions: np.ndarray, head: PolicyHead, n: int) -> np.ndarray:
     if head.discrete:
         return np.asarray(actions).astype(np.int64).reshape(n)
     return np.asarray(actions, dtype=np.float32).reshape(n, head.action_dim)
+
+
+@dataclass
+class RolloutConfig(PolicyNetworkConfig):
+    """Settings of every agent that learns from fixed-length rollouts of vector envs with a
+    value baseline; an agent's Config inherits them (redeclaring a field changes only its
+    default) and calls :meth:`check_rollout` from its ``__post_init__``."""
+
+    gamma: float = 0.99
+    num_envs: int = 8
+    vector_mode: Literal["sync", "async"] = "sync"
+    rollout_steps: int = 16
+    advantage_lambda: float = 0.95
+    lr: float = 0.002
+    adam_eps: float = 1e-5
+    value_weight: float = 0.5
+    entropy_weight: float = 0.0
+    grad_clip_norm: float | None = 0.5
+    standardize: Literal["none", "advantages"] = "none"
+    shared_torso: bool = False
+
+    def check_rollout(self) -> None:
+        require("gamma", self.gamma, 0.0 < self.gamma <= 1.0, "in (0, 1]")
+        require("num_envs", self.num_envs, self.num_envs >= 1, ">= 1")
+        require("rollout_steps", self.rollout_steps, self.rollout_steps >= 1, ">= 1")
+        require("advantage_lambda", self.advantage_lambda,
+                0.0 <= self.advantage_lambda <= 1.0, "in [0, 1]")
+        require("lr", self.lr, _finite_above(self.lr, 0.0), "a finite number > 0")
+        require("adam_eps", self.adam_eps, _finite_above(self.adam_eps, 0.0),
+                "a finite number > 0")
+        require("value_weight", self.value_weight,
+                math.isfinite(self.value_weight) and self.value_weight >= 0,
+                "a finite number >= 0")
+        require("entropy_weight", self.entropy_weight,
+                math.isfinite(self.entropy_weight) and self.entropy_weight >= 0,
+                "a finite number >= 0")
+        require("gaussian_log_std_start", self.gaussian_log_std_start,
+                math.isfinite(self.gaussian_log_std_start), "a finite number")
+        self.check_network()
+
+
+def _finite_above(x: float, low: float) -> bool:
+    return math.isfinite(x) and x > low
 
 
 class PolicyValueNets:
@@ -179,3 +229,68 @@ class Rollout:
         for k, v in state["rollout"].items():
             self.arrays[k][:t] = v.numpy()
         self.t = t
+
+
+class RolloutAgent(Agent):
+    """The acting, storing and checkpointing half of a rollout agent: it builds the networks,
+    one Adam optimiser, the sampler and the rollout store from a :class:`RolloutConfig`,
+    acts, stores each step and calls :meth:`_update` when the rollout is full. A subclass
+    writes only its update (and adds its own state to ``state_dict``)."""
+
+    action_spaces = (spaces.Discrete, spaces.Box)
+
+    @classmethod
+    def supports(cls, action_space: spaces.Space) -> bool:
+        return policy_supports(action_space)
+
+    def __init__(self, observation_space, action_space, config, seed):
+        super().__init__(observation_space, action_space, config, seed)
+        c = config
+        self.obs_dim = flat_dim(observation_space)
+        self.rng, self.gen = make_generators(seed)
+        self.head = PolicyHead(action_space, c.gaussian_std, c.gaussian_log_std_start,
+                               c.gaussian_squash)
+        self.nets = PolicyValueNets(self.obs_dim, self.head, c, self.gen)
+        self.net, self.value_net = self.nets.net, self.nets.value_net
+        self.policy_params, self.params = self.nets.policy_params, self.nets.params
+        self._np_policy = NumpyMLP(self.net)
+        self.opt = adam(self.params, c.lr, c.adam_eps)
+        self.sampler = ActionSampler(self.head, self.gen)
+        self.rollout = Rollout(c.rollout_steps, c.num_envs, self.obs_dim, self.head,
+                               self.sampler)
+        self.updates = 0
+
+    @property
+    def _t(self) -> int:
+        return self.rollout.t
+
+    def act(self, obs: np.ndarray, explore: bool) -> np.ndarray:
+        out = self._np_policy(np.asarray(obs, dtype=np.float32).reshape(len(obs), -1))
+        return self.sampler.act(out[:, : self.head.out_dim], explore)
+
+    def observe(self, step: Step) -> dict[str, float]:
+        self.rollout.add(step)
+        if self.rollout.full:
+            return self._update()
+        return {}
+
+    def _update(self) -> dict[str, float]:
+        raise NotImplementedError
+
+    def state_dict(self) -> dict[str, Any]:
+        return {
+            **self.nets.state_dict(),
+            "opt": self.opt.state_dict(),
+            "rng": generator_states(self.rng, self.gen),
+            "sampler": self.sampler.state_dict(),
+            **self.rollout.state_dict(),
+            "updates": self.updates,
+        }
+
+    def load_state_dict(self, state: dict[str, Any]) -> None:
+        self.nets.load_state_dict(state)
+        self.opt.load_state_dict(state["opt"])
+        load_generator_states(state["rng"], self.rng, self.gen)
+        self.sampler.load_state_dict(state["sampler"])
+        self.rollout.load_state_dict(state)
+        self.updates = int(state["updates"])

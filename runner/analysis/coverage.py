@@ -52,10 +52,11 @@ def coverage_note(seeds_per_env: int, envs: int, method: str = "percentile",
     if found is None:
         return None
     low, high, n, k = found
-    spread = f"{low:.0%}" if round(low, 2) == round(high, 2) else f"{low:.0%}-{high:.0%}"
+    spread = f"{low:.0%}" if f"{low:.0%}" == f"{high:.0%}" else f"{low:.0%}-{high:.0%}"
     design = f"{n} seeds per env on {k} env{'s' if k > 1 else ''}"
     if (n, k) != (seeds_per_env, envs):
-        design += f" (the nearest measured design not larger than {seeds_per_env} on {envs})"
+        design += (f" (the nearest measured design at or below yours, {seeds_per_env} seeds "
+                   f"per env on {envs} envs)")
     return (f"With {design}, a 95% interval like these covered the true IQM {spread} of the "
             f"time in simulation (normal, lognormal and capped scores; {SOURCE}): read it "
             "as a rough range, not a guarantee.")

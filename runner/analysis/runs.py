@@ -252,7 +252,7 @@ def label_variants(runs: list[Run]) -> None:
     for r in runs:
         by_agent[(r.agent, r.env_id, r.env_config)].append(r)
     for (name, _, _), group in by_agent.items():
-        sections = [_flat(r.config.get("agent") or {}) for r in group]
+        sections = [flat_keys(r.config.get("agent") or {}) for r in group]
         keys = sorted({k for s in sections for k in s})
         varying = [k for k in keys if len({json.dumps(s.get(k), sort_keys=True)
                                             for s in sections}) > 1]
@@ -262,11 +262,12 @@ def label_variants(runs: list[Run]) -> None:
             r.label = name + "[" + ",".join(f"{k}={s.get(k)}" for k in varying) + "]"
 
 
-def _flat(d: dict[str, Any], prefix: str = "") -> dict[str, Any]:
+def flat_keys(d: dict[str, Any], prefix: str = "") -> dict[str, Any]:
+    """Nested sections flattened to ``a.b`` keys (how a swept key is named on the CLI)."""
     out = {}
     for k, v in d.items():
         if isinstance(v, dict):
-            out.update(_flat(v, f"{prefix}{k}."))
+            out.update(flat_keys(v, f"{prefix}{k}."))
         else:
             out[f"{prefix}{k}"] = v
     return out

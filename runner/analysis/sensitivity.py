@@ -22,7 +22,7 @@ from typing import Any
 
 import numpy as np
 from seedsweep.runner.analysis import stats
-from seedsweep.runner.analysis.runs import Run
+from seedsweep.runner.analysis.runs import Run, flat_keys
 from seedsweep.runner.analysis.stats import keyed_rng
 from seedsweep.runner.analysis.tuning import is_trial
 
@@ -56,9 +56,10 @@ class SensitivityTable:
 
     @property
     def log_axis(self) -> bool:
-        """A numeric key whose values span more than a factor of 10 is shown on a log axis."""
+        """A numeric key whose values span a factor of 10 or more is shown on a log axis (with
+        a rounding margin: 0.003 / 0.0003 is 10.000000000000002 in floating point)."""
         values = [float(r.value) for r in self.rows] if self.numeric else []
-        return bool(values) and min(values) > 0 and max(values) / min(values) > 10
+        return bool(values) and min(values) > 0 and max(values) / min(values) >= 10 - 1e-9
 
     @property
     def title(self) -> str:
@@ -90,17 +91,7 @@ def _blob(v: Any) -> str:
 def settings(run: Run) -> dict[str, Any]:
     """The run's agent settings, nested sections flattened to ``a.b`` keys."""
     agent = {k: v for k, v in (run.config.get("agent") or {}).items() if k not in NOT_SETTINGS}
-    return _flat(agent)
-
-
-def _flat(d: dict[str, Any], prefix: str = "") -> dict[str, Any]:
-    out = {}
-    for k, v in d.items():
-        if isinstance(v, dict):
-            out.update(_flat(v, f"{prefix}{k}."))
-        else:
-            out[f"{prefix}{k}"] = v
-    return out
+    return flat_keys(agent)
 
 
 def find_tables(runs: Sequence[Run], normalised: dict[str, float], resamples: int,

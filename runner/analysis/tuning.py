@@ -109,9 +109,13 @@ def budget_text(tuned: dict[str, Any] | None) -> str:
     if not tuned:
         return "not tuned"
     envs = tuned.get("envs") or []
-    text = (f"tuned: {tuned.get('trials')} trials × {tuned.get('steps')} steps × "
-            f"{len(envs)} envs × {tuned.get('seeds_per_env')} seeds (study "
-            f"{tuned.get('study')})")
+    n_envs = envs if isinstance(envs, int) else len(envs)
+    steps = tuned.get("steps")
+    steps_text = f"{steps:,}" if isinstance(steps, int) else str(steps)
+    text = (f"tuned: {tuned.get('trials')} trials × {steps_text} steps × "
+            f"{n_envs} envs × {tuned.get('seeds_per_env')} seeds")
+    if tuned.get("study"):
+        text += f" (study {tuned['study']})"
     complete = tuned.get("complete_trials")
     if complete is not None and complete != tuned.get("trials"):
         text += f", {complete} trials complete"

@@ -37,10 +37,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def parse_options(argv: Sequence[str]) -> argparse.Namespace:
-    opts = build_parser().parse_args(list(argv))
-    options.check_statistics_options(opts)
-    options.check_alpha(opts)
-    return opts
+    return options.parse_statistics_options(build_parser(), argv)
 
 
 def argv_of(request: dict[str, Any], sweep: str) -> list[str]:

@@ -81,6 +81,34 @@ def add_config_dirs(p: argparse.ArgumentParser) -> None:
 
 
 # -- options of the statistics commands (report, compare, plan-seeds) -------------------------
+PROGRESS = ("auto", "bar", "lines", "quiet")
+LAUNCHERS = ("local", "submitit", "slurm")
+
+
+def add_progress(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--progress", choices=PROGRESS, default="auto",
+                   help="auto (a live table on a terminal, lines otherwise), bar, lines, quiet")
+
+
+def add_launchers(p: argparse.ArgumentParser, wait: str = "stop waiting") -> None:
+    """Where runs execute: local processes, or submitit jobs (locally or on SLURM)."""
+    add_config_dirs(p)
+    p.add_argument("--launcher", choices=LAUNCHERS, default="local",
+                   help="local (default), submitit (local submitit jobs), slurm")
+    p.add_argument("--slurm", action="append", default=[], metavar="KEY=VALUE",
+                   help="a submitit parameter for the slurm launcher (repeatable)")
+    p.add_argument("--timeout-min", type=float, default=0.0, metavar="M",
+                   help=f"submitit launchers: {wait} after M minutes (0: wait)")
+
+
+def parse_statistics_options(p: argparse.ArgumentParser, argv: Any) -> argparse.Namespace:
+    """Parse a statistics command's options and check the ones that depend on each other."""
+    opts = p.parse_args(list(argv))
+    check_statistics_options(opts)
+    check_alpha(opts)
+    return opts
+
+
 def add_resampling(p: argparse.ArgumentParser) -> None:
     p.add_argument("--resamples", type=int, default=2000, help="bootstrap resamples (2000)")
     p.add_argument("--seed", type=int, default=0, help="seed of the resampling (0)")

@@ -23,8 +23,6 @@ from seedsweep.runner.launch.workers import context
 logger = logging.getLogger(__name__)
 
 HELP = "train and evaluate one run, or a sweep with -m"
-PROGRESS = ("auto", "bar", "lines", "quiet")
-LAUNCHERS = ("local", "submitit", "slurm")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -73,15 +71,8 @@ examples:
                    help="add runs to a folder made by another code version")
     p.add_argument("--no-estimate", action="store_true",
                    help="skip the wall-time estimate before launching")
-    p.add_argument("--progress", choices=PROGRESS, default="auto",
-                   help="auto (a live table on a terminal, lines otherwise), bar, lines, quiet")
-    options.add_config_dirs(p)
-    p.add_argument("--launcher", choices=LAUNCHERS, default="local",
-                   help="local (default), submitit (local submitit jobs), slurm")
-    p.add_argument("--slurm", action="append", default=[], metavar="KEY=VALUE",
-                   help="a submitit parameter for the slurm launcher (repeatable)")
-    p.add_argument("--timeout-min", type=float, default=0.0, metavar="M",
-                   help="submitit launchers: stop waiting after M minutes (0: wait)")
+    options.add_progress(p)
+    options.add_launchers(p)
     return p
 
 

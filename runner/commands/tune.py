@@ -22,8 +22,6 @@ from seedsweep.runner.launch.sweep import SweepOptions
 from seedsweep.runner.present import tables
 
 HELP = "tune every agent with the same budget, on seeds kept apart from evaluation"
-PROGRESS = ("auto", "bar", "lines", "quiet")
-LAUNCHERS = ("local", "submitit", "slurm")
 # Overrides that would break the equal budget or the seed split are set by the options.
 CONTROLLED = {"agent": "--agents and each agent's YAML", "env": "--envs", "seed": "--seeds",
               "steps": "--steps", "sweep": "--study", "tuning": "tune itself",
@@ -65,18 +63,10 @@ example:
     p.add_argument("--sampler-seed", type=int, default=0, help="seed of the TPE sampler (0)")
     p.add_argument("--workers", type=int, default=None,
                    help="parallel run processes (default: physical cores)")
-    p.add_argument("--progress", choices=PROGRESS, default="auto",
-                   help="auto (a live table on a terminal, lines otherwise), bar, lines, quiet")
+    options.add_progress(p)
     p.add_argument("--allow-mixed-code", action="store_true",
                    help="continue a study whose runs were made by another code version")
-    options.add_config_dirs(p)
-    p.add_argument("--launcher", choices=LAUNCHERS, default="local",
-                   help="local (default), submitit (local submitit jobs), slurm")
-    p.add_argument("--slurm", action="append", default=[], metavar="KEY=VALUE",
-                   help="a submitit parameter for the slurm launcher (repeatable)")
-    p.add_argument("--timeout-min", type=float, default=0.0, metavar="M",
-                   help="submitit launchers: stop waiting for a round after M minutes "
-                        "(0: wait)")
+    options.add_launchers(p, "stop waiting for a round")
     return p
 
 

@@ -48,6 +48,15 @@ def jobs_folder(sweep_folder: Path) -> Path:
     would run code as the user. The folder is named after the sweep folder (name and a hash
     of its absolute path) and the launch time.
     """
+    root = check_jobs_root()
+    where = hashlib.sha256(str(sweep_folder.resolve()).encode()).hexdigest()[:8]
+    stamp = records.now_iso().replace(":", "").replace("+", "_")
+    return root / f"{sweep_folder.name}-{where}" / f"{stamp}-{time.monotonic_ns() % 10**6}"
+
+
+def check_jobs_root() -> Path:
+    """The job-file folder, made if missing; ConfigError unless it is private to this user
+    (checked before a sweep writes anything)."""
     root = jobs_root()
     try:
         root.mkdir(parents=True, exist_ok=True, mode=0o700)
@@ -59,9 +68,7 @@ def jobs_folder(sweep_folder: Path) -> Path:
         raise ConfigError("SEEDSWEEP_JOBS", f"{root} must belong to you and be writable by you "
                           "only (it holds the pickled jobs): chmod go-w it, or set "
                           "SEEDSWEEP_JOBS to a private folder every node can see")
-    where = hashlib.sha256(str(sweep_folder.resolve()).encode()).hexdigest()[:8]
-    stamp = records.now_iso().replace(":", "").replace("+", "_")
-    return root / f"{sweep_folder.name}-{where}" / f"{stamp}-{time.monotonic_ns() % 10**6}"
+    return root
 
 
 def make_executor(folder: Path, cluster: str, params: dict) -> submitit.AutoExecutor:

@@ -19,7 +19,7 @@ from seedsweep.configs.checks import ConfigError
 from seedsweep.runner.execution import records
 from seedsweep.runner.execution.prepare import PreparedRun
 from seedsweep.runner.launch import estimate
-from seedsweep.runner.launch.slurm import run_submitit
+from seedsweep.runner.launch.slurm import check_jobs_root, run_submitit
 from seedsweep.runner.launch.workers import (
     Outcome,
     calibrate_in_workers,
@@ -163,6 +163,8 @@ def run_sweep(planned: list[PreparedRun], overrides: Sequence[str], opts: SweepO
             guess = estimate.estimate(to_run, len(to_run))
         logger.info("%s", guess.line())
         costs = guess.costs
+    if to_run and opts.launcher != "local":
+        check_jobs_root()  # refused before anything is written
     write_manifest(folder, planned, overrides)
     if opts.launcher == "local":
         outcome = run_local(to_run, workers, opts, costs=costs)
@@ -181,4 +183,10 @@ def summarise(folder: Path, planned: list[PreparedRun], complete: list, failed: 
                 folder.name, done, len(planned), bad, len(outcome.busy), folder)
     for run_id, reason in outcome.failed:
         logger.info("  failed: %s: %s", run_id, reason)
+    if done == len(planned):
+        logger.info("next: seedsweep report %s (--candidate NAME adds the verdicts of an agent "
+                    "against the others)", folder)
+    elif bad:
+        logger.info("next: seedsweep status %s shows why; the same command with "
+                    "--retry-failed reruns the failed runs", folder)
     return 0 if done == len(planned) else 1

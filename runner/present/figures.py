@@ -5,6 +5,8 @@ each as PNG and SVG bytes without time stamps, so the same report data gives the
 from __future__ import annotations
 
 import io
+import logging
+import warnings
 from collections.abc import Callable
 from typing import Any
 
@@ -20,6 +22,8 @@ from seedsweep.runner.present.figure_parts import RC
 from seedsweep.runner.present.palette import agent_colours
 from seedsweep.runner.present.score_figures import agent_scores, head_to_head
 from seedsweep.runner.present.sensitivity_figure import sensitivity
+
+logger = logging.getLogger(__name__)
 
 FIGURES: dict[str, Callable[[Any, dict[str, str]], Figure]] = {
     "agent_scores": agent_scores,
@@ -69,7 +73,7 @@ def captions(data: Any) -> dict[str, str]:
         out["sensitivity"] = (
             "Per agent and swept key: the IQM of the normalised scores of the runs at each "
             f"value (black tick) with its {conf} (shaded bar, {boot}), and every run's score "
-            "as a dot; a log axis for numeric keys spanning more than a factor of 10. "
+            "as a dot; a log axis for numeric keys spanning a factor of 10 or more. "
             "Tuning trials vary every searched key at once: those panels are marginal.")
     return out
 
@@ -89,10 +93,15 @@ def colours_of(data: Any) -> dict[str, str]:
 def all_figures(data: Any) -> dict[str, tuple[bytes, bytes]]:
     """name -> (png, svg) for every report figure."""
     colours = colours_of(data)
+    builders = dict(FIGURES)
+    if getattr(data, "sensitivity", None):
+        builders["sensitivity"] = sensitivity
     out = {}
     with rc_context(RC):
-        for name, build in FIGURES.items():
-            out[name] = _save(build(data, colours))
-        if getattr(data, "sensitivity", None):
-            out["sensitivity"] = _save(sensitivity(data, colours))
+        for name, build in builders.items():
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
+                out[name] = _save(build(data, colours))
+            for text in dict.fromkeys(str(w.message).splitlines()[0] for w in caught):
+                logger.warning("figure %s: %s", name, text)  # one line, not matplotlib's
     return out

@@ -105,7 +105,7 @@ def _scores(data: Any, summary: dict[str, Any], colours: dict[str, str]) -> str:
     conf = text.ci_label(data.options["confidence"])
     shown = text.shown_statistics(len(data.envs))
     agents = summary["agents"]
-    tuned = any("tuning" in agents[a] for a in data.agents)
+    tuned = any(agents[a].get("tuning") for a in data.agents)
     header = ["agent", "runs"] + (["tuning"] if tuned else [])
     header += [f"{text.STAT_LABELS[s]} ({conf})" if s != "optimality_gap"
                else f"optimality gap, lower is better ({conf})" for s in shown]

@@ -107,9 +107,7 @@ def print_summary(data: ReportData, target: Path, comparison: Any = None) -> Non
     doc = comparison.doc if comparison is not None else None
     if doc is not None:
         console.print()
-        for c in doc["comparisons"]:
-            _say(console, f"{doc['candidate']} vs {c['baseline']}: "
-                 f"{text.VERDICT_SIGNS.get(c['verdict'], '')} {c['verdict']}", "bold")
+        print_verdicts(console, doc)
     if comparison is not None and comparison.note:
         _say(console, comparison.note)
     page = target / "report.html"
@@ -164,6 +162,19 @@ def _next(console: Console, steps: list[str]) -> None:
 def print_comparison(doc: dict[str, Any], target: Path) -> None:
     """The verdicts first, then what they rest on: one row per baseline, then per env."""
     console = _console()
+    print_verdicts(console, doc)
+    _say(console, f"comparison: {target}")
+    page = Path(target).parent / "report.html"
+    steps = text.next_steps(str(Path(target).parent.parent), page.resolve().as_uri(),
+                            doc["candidate"], [], doc["comparisons"])
+    if not page.is_file():
+        steps = steps[1:] + [f"make the page: seedsweep report {Path(target).parent.parent}"]
+    if steps:
+        _next(console, steps)
+
+
+def print_verdicts(console: Console, doc: dict[str, Any]) -> None:
+    """The verdict table, the per-env table and each verdict's reason and evidence."""
     conf = text.ci_label(doc["bootstrap"]["confidence"])
     cand = doc["candidate"]
     _say(console, f"{cand} vs {len(doc['comparisons'])} baseline(s) on {len(doc['envs'])} "
@@ -194,8 +205,8 @@ def print_comparison(doc: dict[str, Any], target: Path) -> None:
     console.print()
     _say(console, f"per env: IQM of raw scores over seeds ({conf}), (seeds)", "bold")
     env_flags: list[str] = []
-    envs = _table(("env", "left"), ("baseline", "left"), (cand, "right"),
-                  ("baseline's\nscore", "right"), (f"P({cand} >\nbaseline)", "right"))
+    envs = _table(("env", "left"), ("baseline", "left"), (f"{cand}\nscore", "right"),
+                  ("baseline\nscore", "right"), (f"P({cand} >\nbaseline)", "right"))
     for c in doc["comparisons"]:
         for env, cell in c["per_env"].items():
             x, y = cell["raw_iqm"]["candidate"], cell["raw_iqm"]["baseline"]
@@ -212,14 +223,6 @@ def print_comparison(doc: dict[str, Any], target: Path) -> None:
         _say(console, f"  evidence: {c['evidence']}", "dim")
     if doc["excluded_runs"]:
         _say(console, f"{len(doc['excluded_runs'])} run(s) left out; listed in compare.json.")
-    _say(console, f"comparison: {target}")
-    page = Path(target).parent / "report.html"
-    steps = text.next_steps(str(Path(target).parent.parent), page.resolve().as_uri(), cand, [],
-                            doc["comparisons"])
-    if not page.is_file():
-        steps = steps[1:] + [f"make the page: seedsweep report {Path(target).parent.parent}"]
-    if steps:
-        _next(console, steps)
 
 
 def _flagged(fmt: Any, iv: dict[str, float], flags: list[str]) -> str:
