@@ -12,7 +12,7 @@ comes from calibration runs, as on a new machine), and reads its stderr as it co
 Examples (the second is classic_discrete cut down to fit a short session; say so when
 quoting it)::
 
-    python benchmarks/estimate_accuracy.py --plan demo
+    python benchmarks/estimate_accuracy.py --plan demo -- --config-dir examples/configs
     python benchmarks/estimate_accuracy.py --plan classic_discrete steps=10000 'seed=range(2)'
 """
 
