@@ -88,6 +88,8 @@ def main() -> None:
         print(f"live ETA once a fifth was done: {len(measured)} status lines, error "
               f"median {statistics.median(errs):+.0f}%, first {errs[0]:+.0f}%, "
               f"range {min(errs):+.0f}% .. {max(errs):+.0f}%")
+        print("  each line: " + ", ".join(f"ETA {eta} s with {end - t:.0f} s left"
+                                          for t, eta in measured))
     else:
         print("live ETA: no status line after a fifth of the work (the sweep was short)")
 
