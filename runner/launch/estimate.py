@@ -261,8 +261,3 @@ def estimate(to_run: list[PreparedRun], workers: int,
     wall = SERVER_START_S + makespan([per_run[p.run_id] for p in to_run], workers)
     totals = tuple(sum(x[i] for x in parts.values()) for i in range(3))
     return Estimate(per_run, wall, basis, startup_s, measured_startup, max(1, workers), totals)
-
-
-def estimate_wall_time(to_run, workers: int) -> str:
-    """One line: the sweep's size and its estimated wall time, with where that came from."""
-    return "seedsweep: " + estimate(to_run, workers).line()
