@@ -220,3 +220,19 @@ def test_submitit_local_launcher_runs_the_same_sweep(tmp_path):
     assert done.returncode == 0, done.stderr
     assert set(statuses(tmp_path / "sub").values()) == {"complete"}
     assert len(statuses(tmp_path / "sub")) == 2
+
+
+def test_sigterm_to_a_sweep_interrupts_its_runs_and_leaves_none_behind(tmp_path):
+    """A scheduler or `kill` sends SIGTERM to the sweep's process only: its runs are stopped
+    resumably with it, not left running as orphans."""
+    base = ["run", "-m", "agent=dqn", "env=cartpole", "seed=0,1", "agent.replay_warmup_steps=200",
+            "steps=20000", "eval.every=400", "eval.episodes=2", "checkpoint.every=300",
+            "--workers", "2", "--progress=quiet", f"results_dir={tmp_path}", "sweep=t"]
+    code = _kill_after(base, tmp_path / "t", 2, sig=signal.SIGTERM)
+    assert code == 130
+    time.sleep(1)
+    docs = [json.loads(p.read_text()) for p in (tmp_path / "t").glob("*/run.json")]
+    assert docs and all(d["status"] == "running" and d["interrupted"] for d in docs)
+    stamps = {p: p.stat().st_mtime_ns for p in (tmp_path / "t").glob("*/eval.csv")}
+    time.sleep(2)  # an orphaned run would still be writing its records
+    assert {p: p.stat().st_mtime_ns for p in stamps} == stamps

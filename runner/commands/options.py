@@ -101,6 +101,23 @@ def add_launchers(p: argparse.ArgumentParser, wait: str = "stop waiting") -> Non
                    help=f"submitit launchers: {wait} after M minutes (0: wait)")
 
 
+def take_workers(opts: argparse.Namespace) -> None:
+    """``workers=N`` among the key=value overrides is ``--workers N``: move it there, checked."""
+    rest = []
+    for item in opts.overrides:
+        if item.startswith("workers="):
+            value = item.split("=", 1)[1]
+            try:
+                opts.workers = int(value)
+            except ValueError:
+                raise ConfigError("workers", f"expected an integer, got {value!r}") from None
+        else:
+            rest.append(item)
+    opts.overrides = rest
+    if opts.workers is not None and opts.workers < 1:
+        raise ConfigError("workers", f"must be >= 1 (got {opts.workers})")
+
+
 def parse_statistics_options(p: argparse.ArgumentParser, argv: Any) -> argparse.Namespace:
     """Parse a statistics command's options and check the ones that depend on each other."""
     opts = p.parse_args(list(argv))

@@ -78,19 +78,7 @@ examples:
 
 def parse_options(argv: Sequence[str]) -> argparse.Namespace:
     opts = build_parser().parse_intermixed_args(list(argv))
-    overrides = []
-    for a in opts.overrides:
-        if a.startswith("workers="):
-            value = a.split("=", 1)[1]
-            try:
-                opts.workers = int(value)
-            except ValueError:
-                raise ConfigError("workers", f"expected an integer, got {value!r}") from None
-        else:
-            overrides.append(a)
-    opts.overrides = overrides
-    if opts.workers is not None and opts.workers < 1:
-        raise ConfigError("workers", f"must be >= 1 (got {opts.workers})")
+    options.take_workers(opts)
     if opts.timeout_min < 0:
         raise ConfigError("--timeout-min", f"must be >= 0 (got {opts.timeout_min})")
     opts.slurm_params = {}
@@ -127,6 +115,7 @@ def _run(argv: Sequence[str]) -> int:
     )
     if not multirun and opts.launcher == "local":
         return run_single(planned[0], sweep_opts)
+    interrupt_on_sigterm()  # a SIGTERM to the sweep stops its runs resumably, as Ctrl-C does
     return run_sweep(planned, opts.overrides, sweep_opts)
 
 

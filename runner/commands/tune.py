@@ -80,16 +80,8 @@ def _names(text: str, field: str) -> list[str]:
 def parse_request(argv: Sequence[str]) -> tuple[tune.TuneRequest, int]:
     """The checked request (ConfigError on bad input) and the workers' count."""
     opts = build_parser().parse_intermixed_args(list(argv))
-    overrides, results_dir = [], "results"
-    for item in opts.overrides:
-        if item.startswith("workers="):
-            value = item.split("=", 1)[1]
-            try:
-                opts.workers = int(value)
-            except ValueError:
-                raise ConfigError("workers", f"expected an integer, got {value!r}") from None
-            continue
-        overrides.append(item)
+    options.take_workers(opts)
+    overrides, results_dir = list(opts.overrides), "results"
     for o in parse_overrides(overrides):
         key = o.get_key_element().lstrip("+~")
         top = key.split(".")[0]
@@ -108,8 +100,6 @@ def parse_request(argv: Sequence[str]) -> tuple[tune.TuneRequest, int]:
                                                             opts.sampler_seed, 0)):
         if value < least:
             raise ConfigError(flag, f"must be >= {least} (got {value})")
-    if opts.workers is not None and opts.workers < 1:
-        raise ConfigError("workers", f"must be >= 1 (got {opts.workers})")
     if opts.timeout_min < 0:
         raise ConfigError("--timeout-min", f"must be >= 0 (got {opts.timeout_min})")
     if not SAFE_NAME.match(opts.study):
