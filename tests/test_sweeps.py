@@ -70,10 +70,16 @@ def test_failures_are_isolated_and_retry_failed_reruns_only_them(tmp_path, capsy
     assert healthy[0].stat().st_mtime_ns == before
 
 
-def _kill_after(args, folder: Path, checkpoints: int, sig=signal.SIGKILL) -> int:
-    """Start a real run process and kill it once it has written `checkpoints` checkpoints."""
+def _kill_after(args, folder: Path, checkpoints: int, sig=signal.SIGKILL,
+                ignore_sigint: bool = False) -> int:
+    """Start a real run process and kill it once it has written `checkpoints` checkpoints.
+    ``ignore_sigint``: start it as `cmd &` in a script would (SIGINT ignored, inherited)."""
+    def background():
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+
     proc = subprocess.Popen([sys.executable, "-m", "seedsweep.runner.commands.main", *args],
-                            cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+                            cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                            preexec_fn=background if ignore_sigint else None)
     deadline = time.monotonic() + 240
     seen = set()
     while time.monotonic() < deadline and proc.poll() is None:
@@ -222,13 +228,16 @@ def test_submitit_local_launcher_runs_the_same_sweep(tmp_path):
     assert len(statuses(tmp_path / "sub")) == 2
 
 
-def test_sigterm_to_a_sweep_interrupts_its_runs_and_leaves_none_behind(tmp_path):
+@pytest.mark.parametrize("ignore_sigint", [False, True], ids=["foreground", "background"])
+def test_sigterm_to_a_sweep_interrupts_its_runs_and_leaves_none_behind(tmp_path,
+                                                                      ignore_sigint):
     """A scheduler or `kill` sends SIGTERM to the sweep's process only: its runs are stopped
-    resumably with it, not left running as orphans."""
+    resumably with it, not left running as orphans -- also when the sweep was started in the
+    background by a script, where SIGINT is ignored."""
     base = ["run", "-m", "agent=dqn", "env=cartpole", "seed=0,1", "agent.replay_warmup_steps=200",
             "steps=20000", "eval.every=400", "eval.episodes=2", "checkpoint.every=300",
             "--workers", "2", "--progress=quiet", f"results_dir={tmp_path}", "sweep=t"]
-    code = _kill_after(base, tmp_path / "t", 2, sig=signal.SIGTERM)
+    code = _kill_after(base, tmp_path / "t", 2, sig=signal.SIGTERM, ignore_sigint=ignore_sigint)
     assert code == 130
     time.sleep(1)
     docs = [json.loads(p.read_text()) for p in (tmp_path / "t").glob("*/run.json")]

@@ -250,9 +250,11 @@ def run_local(planned: list[PreparedRun], workers: int, opts,
             display.refresh()
         _drain(messages, display, timeout=0.0)
     except KeyboardInterrupt:
+        # SIGTERM, which every run turns into an interruption: SIGINT may be ignored by the
+        # runs (a sweep started in the background by a script inherits SIGINT ignored)
         for proc, _ in running.values():
             if proc.is_alive():
-                os.kill(proc.pid, signal.SIGINT)
+                os.kill(proc.pid, signal.SIGTERM)
         for proc, _ in running.values():
             proc.join(timeout=30)
         raise
