@@ -15,7 +15,6 @@ import traceback
 from pathlib import Path
 from typing import Any
 
-import torch
 from filelock import FileLock, Timeout
 from omegaconf import OmegaConf
 from seedsweep.envs.build import make_eval_env, make_train_envs
@@ -25,6 +24,7 @@ from seedsweep.runner.execution.prepare import PreparedRun
 from seedsweep.runner.execution.progress import RunListener, Silent
 from seedsweep.runner.execution.protocol import batch_width
 from seedsweep.runner.execution.seeding import seed_globals
+from seedsweep.runner.execution.threads import set_compute_threads
 from torch.utils.tensorboard import SummaryWriter
 
 logger = logging.getLogger(__name__)
@@ -196,7 +196,7 @@ def _train(p: PreparedRun, bar: RunListener, existing: dict[str, Any] | None) ->
     records.atomic_write_json(run_dir / "run.json", _run_json(p, "running", started))
     trainer = None
     try:
-        torch.set_num_threads(int(p.config["torch_threads"]))
+        set_compute_threads(int(p.config["torch_threads"]))
         built, resumed = _resume(p, bar, started) if existing else (None, None)
         if built is None:
             built = _Built(p, bar, started)

@@ -33,11 +33,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import torch
 from seedsweep.runner.execution import logs, records
 from seedsweep.runner.execution.prepare import PreparedRun, prepare
 from seedsweep.runner.execution.progress import RunListener
 from seedsweep.runner.execution.run import RunBusy, execute, interrupt_on_sigterm
+from seedsweep.runner.execution.threads import set_compute_threads
 from seedsweep.runner.launch import estimate
 from seedsweep.runner.launch.display import QueueProgress, RunProgress, SweepProgress
 
@@ -197,14 +197,14 @@ def calibrate_in_workers(planned: list[PreparedRun], workers: int
 
 
 def _calibrate_job(config: dict[str, Any], path: str, parent: Any = None) -> None:
-    torch.set_num_threads(int(config.get("torch_threads", 1)))
+    set_compute_threads(int(config.get("torch_threads", 1)))
     cost = estimate.calibrate(prepare(config))
     Path(path).write_text(json.dumps(cost.as_dict()))
 
 
 def _worker(config: dict[str, Any], run_id: str, retry_failed: bool, messages,
             parent: Any = None) -> None:
-    torch.set_num_threads(int(config.get("torch_threads", 1)))
+    set_compute_threads(int(config.get("torch_threads", 1)))
     try:
         doc = run_job(config, retry_failed,
                       QueueProgress(messages).for_run(run_id, int(config["steps"])))
