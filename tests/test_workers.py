@@ -2,13 +2,18 @@
 current folder and environment, one torch thread, and start-up measured from outside."""
 
 import csv
+import multiprocessing.forkserver as mp_forkserver
 import os
+import signal
+import threading
+import time
 from pathlib import Path
 
 import numpy as np
 import pytest
 import torch
 from seedsweep.agents.base import Step
+from seedsweep.runner.execution import records
 from seedsweep.runner.execution.threads import set_compute_threads
 from seedsweep.runner.launch import workers
 from seedsweep.runner.launch.plan import plan
@@ -131,3 +136,33 @@ def test_a_run_process_computes_with_one_torch_and_one_blas_thread(tmp_path):
         seen = {(r["key"], float(r["value"])) for r in csv.DictReader(f)
                 if r["key"] in ("torch_threads", "blas_threads_max")}
     assert seen == {("torch_threads", 1.0), ("blas_threads_max", 1.0)}
+
+
+def _kill_server_once_running(planned, give_up: float, killed: list) -> None:
+    while time.monotonic() < give_up:
+        docs = [records.read_run_json(p.run_dir) or {} for p in planned]
+        if all(d.get("status") == "running" for d in docs):
+            os.kill(mp_forkserver._forkserver._forkserver_pid, signal.SIGKILL)
+            killed.append(True)
+            return
+        time.sleep(0.02)
+
+
+def test_runs_outlive_a_killed_run_server_and_later_runs_start_from_a_new_one(tmp_path):
+    """The runs of a sweep are forked from one server process; if it dies (the OOM killer,
+    a stray kill), its running children go on, and the sweep must wait for them rather than
+    read the lost exit code as a failure (multiprocessing reports 255)."""
+    workers.context()
+    planned = plan(["agent=random", "env=cartpole", "seed=0,1,2", "steps=300000",
+                    "eval.every=300000", "eval.episodes=1", f"results_dir={tmp_path}",
+                    "sweep=k"], multirun=True)
+    killed: list = []
+    killer = threading.Thread(target=_kill_server_once_running,
+                              args=(planned[:2], time.monotonic() + 60, killed))
+    killer.start()
+    outcome = workers.run_local(planned, 2, QUIET)
+    killer.join()
+    assert killed, "the server was killed while the first two runs were running"
+    assert outcome.failed == [] and outcome.complete == 3
+    for p in planned:
+        assert records.read_run_json(p.run_dir)["status"] == "complete"

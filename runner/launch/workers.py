@@ -44,6 +44,8 @@ from seedsweep.runner.launch.display import QueueProgress, RunProgress, SweepPro
 logger = logging.getLogger(__name__)
 
 EXIT_BUSY = 3
+# multiprocessing's exit code for a process whose forkserver died: the run itself may go on
+SERVER_LOST = 255
 START_METHOD = "forkserver"  # "spawn": a fresh interpreter per run (seconds of imports each)
 # imported once by the forkserver; the first one sets one torch thread before anything runs
 # (torch._dynamo: torch's optimisers import it on first use, about 1 s with sympy)
@@ -222,12 +224,14 @@ def run_local(planned: list[PreparedRun], workers: int, opts,
     messages = ctx.Queue()
     pending = list(planned)
     running: dict[str, tuple[Any, PreparedRun]] = {}
+    # runs whose process outlived the server it was forked from: watched by pid until it ends
+    adrift: dict[str, tuple[int, PreparedRun]] = {}
     launched: dict[str, float] = {}
     outcome = Outcome()
     display = SweepProgress(planned, workers, mode=opts.progress, costs=costs)
     try:
-        while pending or running:
-            while pending and len(running) < workers:
+        while pending or running or adrift:
+            while pending and len(running) + len(adrift) < workers:
                 p = pending.pop(0)
                 proc = ctx.Process(target=_worker,
                                    args=(p.config, p.run_id, opts.retry_failed, messages,
@@ -246,7 +250,16 @@ def run_local(planned: list[PreparedRun], workers: int, opts,
                 proc.join()
                 took = time.perf_counter() - launched[run_id]
                 del running[run_id]
+                if proc.exitcode == SERVER_LOST and _still_running(proc.pid):
+                    logger.warning("the run server died; %s goes on in its process %d, "
+                                   "watched until it ends", run_id, proc.pid)
+                    adrift[run_id] = (proc.pid, p)
+                    continue
                 _settle(proc.exitcode, p, outcome, display, took)
+            for run_id, (pid, p) in list(adrift.items()):
+                if not _still_running(pid):
+                    del adrift[run_id]
+                    _settle(None, p, outcome, display, time.perf_counter() - launched[run_id])
             display.refresh()
         _drain(messages, display, timeout=0.0)
     except KeyboardInterrupt:
@@ -255,8 +268,15 @@ def run_local(planned: list[PreparedRun], workers: int, opts,
         for proc, _ in running.values():
             if proc.is_alive():
                 os.kill(proc.pid, signal.SIGTERM)
+        for pid, _ in adrift.values():
+            if _still_running(pid):
+                os.kill(pid, signal.SIGTERM)
         for proc, _ in running.values():
             proc.join(timeout=30)
+        deadline = time.monotonic() + 30
+        while any(_still_running(pid) for pid, _ in adrift.values()) and (
+                time.monotonic() < deadline):
+            time.sleep(0.1)
         raise
     finally:
         display.close()
@@ -275,9 +295,27 @@ def _drain(messages, display: SweepProgress, timeout: float) -> None:
         deadline = time.monotonic()
 
 
+def _still_running(pid: int) -> bool:
+    """Whether process ``pid`` is alive and not a zombie (``/proc``; else a null signal)."""
+    if Path("/proc/self/stat").exists():
+        try:
+            state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+        except (OSError, IndexError):
+            return False
+        return state not in ("Z", "X")
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
 def _settle(exitcode: int | None, p: PreparedRun, outcome: Outcome, display: SweepProgress,
             took: float = 0.0) -> None:
-    """Read what the finished process left on disk; a dead worker's run is marked failed."""
+    """Read what the finished process left on disk; a dead worker's run is marked failed.
+    ``exitcode`` None: the process outlived its server, so only its records tell."""
     try:
         doc = records.read_run_json(p.run_dir) or {}
     except records.RecordError:
@@ -289,7 +327,7 @@ def _settle(exitcode: int | None, p: PreparedRun, outcome: Outcome, display: Swe
         outcome.busy.append(p.run_id)
         display.finished(p.run_id, "busy")
         return
-    if status == "complete" and exitcode == 0:
+    if status == "complete" and exitcode in (0, None):
         outcome.complete += 1
         display.finished(p.run_id, "complete")
         return
@@ -303,6 +341,8 @@ def _settle(exitcode: int | None, p: PreparedRun, outcome: Outcome, display: Swe
 
 
 def _death_reason(exitcode: int | None) -> str:
+    if exitcode is None:
+        return "worker process ended without recording a result (after the run server died)"
     if exitcode is not None and exitcode < 0:
         try:
             name = signal.Signals(-exitcode).name
