@@ -404,8 +404,12 @@ def test_shipped_yaml_sets_every_hyperparameter_and_builds():
     assert raw.pop("name") == "ppo"
     assert raw.pop("entry") == "seedsweep.agents.ppo:PPO"
     raw.pop("search")  # the search space of seedsweep tune, not a hyperparameter
+    per_env = raw.pop("per_env")  # settings for one env each, merged over the rest
     assert set(raw) == {f.name for f in dataclasses.fields(PPO.Config)}
     assert build_config(PPO, raw) == PPO.Config()  # the dataclass defaults are the shipped ones
+    for env, values in per_env.items():
+        assert (CONFIGS.parent / "env" / f"{env}.yaml").is_file(), env
+        assert build_config(PPO, {**raw, **values}) != PPO.Config()
 
 
 def test_supported_action_spaces():
