@@ -295,9 +295,12 @@ def _drain(messages, display: SweepProgress, timeout: float) -> None:
         deadline = time.monotonic()
 
 
+_HAS_PROC = Path("/proc/self/stat").exists()
+
+
 def _still_running(pid: int) -> bool:
     """Whether process ``pid`` is alive and not a zombie (``/proc``; else a null signal)."""
-    if Path("/proc/self/stat").exists():
+    if _HAS_PROC:
         try:
             state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
         except (OSError, IndexError):
@@ -343,7 +346,7 @@ def _settle(exitcode: int | None, p: PreparedRun, outcome: Outcome, display: Swe
 def _death_reason(exitcode: int | None) -> str:
     if exitcode is None:
         return "worker process ended without recording a result (after the run server died)"
-    if exitcode is not None and exitcode < 0:
+    if exitcode < 0:
         try:
             name = signal.Signals(-exitcode).name
         except ValueError:
