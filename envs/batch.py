@@ -26,6 +26,7 @@ import torch
 from gymnasium.vector import AsyncVectorEnv, AutoresetMode, SyncVectorEnv
 from seedsweep.envs import snapshot
 from seedsweep.envs.normalize import ObsNormalizer
+from seedsweep.envs.replay import EpisodeLog, ReplayError, replay, replays_faithfully
 
 RewardTransform = tuple[str, dict[str, Any]]
 
@@ -73,7 +74,7 @@ class TrainEnvs:
         self._return1, self._length1 = 0.0, 0  # the same, on the one-env path
         self._reward_arrays: dict[float, np.ndarray] = {}
         self.vector_mode = vector_mode
-        self.track_resets = False  # set by the runner when it checkpoints at episode ends
+        self.track_resets = False  # set by enable_snapshots when it checkpoints at episode ends
         self.reset_rng_state: dict | None = None  # env RNG just before the last reset
         self.raw_obs: np.ndarray | None = None  # last observation before normalisation
 
@@ -172,14 +173,27 @@ class TrainEnvs:
             return [self._single]
         return list(getattr(self._vector, "envs", []))
 
-    def snapshot_kind(self) -> str:
-        """How this batch's env state can be saved: ``state`` (every env's attributes as
-        plain data, any step), ``reset`` (one env, at an episode end: its RNG before the
-        reset) or ``none``."""
+    def enable_snapshots(self) -> str:
+        """Choose how this batch's env state will be saved, and prepare for it (before the
+        first reset): ``state`` (every env's attributes as plain data, any step), ``replay``
+        (a sync batch of envs that are not plain data: each env's episode so far, replayed on
+        resume; any step), ``reset`` (one such env, at an episode end: its RNG before the
+        reset) or ``none`` (an async batch of such envs)."""
+        if self.raw_obs is not None:
+            raise RuntimeError("snapshots are chosen before the envs are first reset")
         if (self.vector_mode != "async" or self.num_envs == 1) and snapshot.restores_faithfully(
                 self._make_env):
             return "state"
-        return "reset" if self.num_envs == 1 else "none"
+        if self.num_envs == 1:
+            self.track_resets = True
+            return "reset"
+        if self.vector_mode == "async" or not replays_faithfully(self._make_env):
+            return "none"
+        self._vector.close()  # rebuilt with every env's episode logged
+        make_env = self._make_env
+        self._vector = SyncVectorEnv([lambda: EpisodeLog(make_env())] * self.num_envs,
+                                     autoreset_mode=AutoresetMode.SAME_STEP)
+        return "replay"
 
     def state_dict(self, kind: str) -> dict[str, Any]:
         if self._single is not None:
@@ -193,6 +207,8 @@ class TrainEnvs:
         }
         if kind == "state":
             state["envs"] = [snapshot.capture(env) for env in self.envs]
+        elif kind == "replay":
+            state["episodes"] = [env.state_dict() for env in self.envs]
         elif kind == "reset":
             if self.reset_rng_state is None:
                 raise RuntimeError("no episode has ended since the last snapshot")
@@ -201,9 +217,10 @@ class TrainEnvs:
 
     def load_state_dict(self, state: dict[str, Any]) -> np.ndarray:
         """Restore the envs; returns the observation to act on next."""
-        if state.get("kind") not in ("state", "reset"):
+        if state.get("kind") not in ("state", "replay", "reset"):
             raise RuntimeError(f"env state of kind {state.get('kind')!r} cannot be restored "
-                               "(only 'state' and 'reset'; pickled envs are never loaded)")
+                               "(only 'state', 'replay' and 'reset'; pickled envs are never "
+                               "loaded)")
         self._returns[:] = state["returns"].numpy()
         self._lengths[:] = state["lengths"].numpy()
         self._return1, self._length1 = float(self._returns[0]), int(self._lengths[0])
@@ -218,6 +235,16 @@ class TrainEnvs:
             for env, saved in zip(envs, state["envs"], strict=True):
                 env.reset(seed=0)  # makes the lazily created attributes, then overwritten
                 snapshot.restore(env, saved)
+        elif state["kind"] == "replay":
+            envs = self.envs
+            if len(state["episodes"]) != len(envs) or not all(
+                    isinstance(env, EpisodeLog) for env in envs):
+                raise ReplayError(f"{len(state['episodes'])} episode logs for {len(envs)} envs "
+                                  "that do not keep one")
+            for i, (env, log) in enumerate(zip(envs, state["episodes"], strict=True)):
+                if not np.array_equal(replay(env, log), raw[i]):
+                    raise ReplayError(f"env {i}'s replayed episode did not end at the saved "
+                                      "observation")
         elif state["kind"] == "reset":
             env = self._single
             env.reset(seed=0)  # creates the RNG, then it is overwritten

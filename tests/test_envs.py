@@ -5,6 +5,7 @@ import numpy as np
 import pytest
 from seedsweep.agents.base import ConfigError
 from seedsweep.envs.build import make_eval_env, make_train_envs, parse_env_config
+from seedsweep.envs.replay import ReplayError
 
 
 def spec(**kw):
@@ -113,6 +114,54 @@ def test_vector_training_envs_return_final_observation_on_reset():
         obs, _, next_obs, term, trunc, finished = train.step(np.array([0, 1]))
     assert trunc.all() and len(finished) == 2
     assert not np.allclose(obs, next_obs)  # obs = reset obs, next_obs = final obs
+
+
+def _stepped_lander_batch(actions: np.ndarray):
+    """Two LunarLander-v3 envs (box2d: state in C objects, not plain data), checkpointable."""
+    train = make_train_envs(spec(id="LunarLander-v3"), 2)
+    assert train.enable_snapshots() == "replay"
+    train.reset(seed=7)
+    for a in actions:
+        train.step(a)
+    return train
+
+
+def test_box2d_batch_is_rebuilt_by_replaying_each_envs_episode():
+    # 260 random steps: LunarLander-v3 episodes under random actions end within that (env
+    # spec: a crash or leaving the screen terminates), so both kinds of episode start are
+    # replayed -- the first reset's seed and the generator's state at an autoreset.
+    rng = np.random.default_rng(0)
+    actions = rng.integers(4, size=(320, 2))  # Discrete(4) (gymnasium env spec)
+    original = _stepped_lander_batch(actions[:260])
+    logs = [env.state_dict()["began"] for env in original.envs]
+    assert any("rng" in b for b in logs), logs
+    state = original.state_dict("replay")
+    copy_ = make_train_envs(spec(id="LunarLander-v3"), 2)
+    assert copy_.enable_snapshots() == "replay"
+    obs = copy_.load_state_dict(state)
+    np.testing.assert_array_equal(obs, original.raw_obs)
+    for a in actions[260:]:  # both carry on identically, across further episode ends
+        ours, theirs = original.step(a), copy_.step(a)
+        for x, y in zip(ours[:5], theirs[:5], strict=True):
+            np.testing.assert_array_equal(x, y)
+        assert ours[5] == theirs[5]
+
+
+def test_a_replay_that_does_not_end_at_the_saved_observation_is_refused():
+    rng = np.random.default_rng(1)
+    state = _stepped_lander_batch(rng.integers(4, size=(40, 2))).state_dict("replay")
+    state["episodes"][1]["actions"][-1] = (state["episodes"][1]["actions"][-1] + 1) % 4
+    copy_ = make_train_envs(spec(id="LunarLander-v3"), 2)
+    copy_.enable_snapshots()
+    with pytest.raises(ReplayError, match="env 1's replayed episode"):
+        copy_.load_state_dict(state)
+
+
+def test_snapshot_kinds_follow_what_the_envs_allow():
+    cartpole, lander = spec(), spec(id="LunarLander-v3")
+    assert make_train_envs(cartpole, 2).enable_snapshots() == "state"  # plain data
+    assert make_train_envs(lander, 1).enable_snapshots() == "reset"  # one env: episode ends
+    assert make_train_envs(lander, 2, "async").enable_snapshots() == "none"  # other processes
 
 
 @pytest.mark.parametrize("entry,field,allowed", [

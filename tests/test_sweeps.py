@@ -98,10 +98,13 @@ def _kill_after(args, folder: Path, checkpoints: int, sig=signal.SIGKILL,
     # box2d envs keep state in C objects: snapshots at episode ends (short episodes: frequent)
     ["agent=dqn", "env=lunarlander", "env.max_episode_steps=150", "agent.replay_warmup_steps=200"],
     ["agent=actor_critic", "env=cartpole"],  # 8 envs in gymnasium's sync vector env
+    # 8 box2d envs: each env's episode so far, replayed on resume (envs/replay.py)
+    ["agent=actor_critic", "env=lunarlander"],
     # the observation normaliser's statistics are saved and restored with the envs
     ["agent=reinforce", "env=mountaincar_continuous"],
     ["agent=actor_critic", "env=mountaincar_continuous"],
-], ids=["plain-data-envs", "reset-snapshots", "vector-envs", "normalized-obs-one-env",
+], ids=["plain-data-envs", "reset-snapshots", "vector-envs", "replayed-vector-envs",
+        "normalized-obs-one-env",
         "normalized-obs-vector-envs"])
 def test_sigkilled_run_resumes_to_byte_identical_eval_csv(tmp_path, extra):
     base = ["run", *extra, "steps=3000", "eval.every=500", "eval.episodes=2",

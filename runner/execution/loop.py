@@ -155,7 +155,7 @@ class Trainer:
                     while self.next_checkpoint <= steps:
                         self.next_checkpoint += sched.checkpoint_every
                     self._checkpoint_pending = True
-                if self._checkpoint_pending and (finished or self.snapshot_kind == "state"):
+                if self._checkpoint_pending and (finished or self.snapshot_kind != "reset"):
                     # "reset" snapshots exist only right after an episode ended and reset
                     self._checkpoint_pending = False
                     if self.on_checkpoint is not None:

@@ -169,14 +169,14 @@ class _Built:
             eval_envs=self.eval_envs,
         )
         if schedule.checkpoint_every:
-            kind = self.envs.snapshot_kind()
+            kind = self.envs.enable_snapshots()
             self.trainer.snapshot_kind = kind
-            self.envs.track_resets = kind == "reset"
             if kind == "none":
                 self.trainer.next_checkpoint = math.inf
-                logger.warning("%s: the state of its %d envs cannot be saved (async vector "
-                               "env, or envs whose state is not plain data); no training "
-                               "checkpoints, an interrupted run restarts", p.run_id,
+                logger.warning("%s: the state of its %d envs cannot be saved (an async vector "
+                               "env, or envs whose state is neither plain data nor "
+                               "replayable); no training checkpoints, an interrupted run "
+                               "restarts", p.run_id,
                                self.envs.num_envs)
 
     def close(self) -> None:
