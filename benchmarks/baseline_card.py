@@ -15,7 +15,9 @@ per-seed values and curves' first threshold crossings, to ``benchmarks/cards/<fo
 * every seed's final score;
 * the env step at which an evaluation first reached the gymnasium spec's ``reward_threshold``,
   per seed (empty where never), and how many seeds reached it;
-* the median wall time per run, the budget, the code versions of the runs.
+* the median wall time per run, the budget, the code versions of the runs;
+* in the JSON, the agent settings the runs used (their resolved ``agent`` section, ``per_env``
+  settings applied), so ``card_regression.py`` can tell when the shipped settings moved on.
 
 Runs that are not complete are counted and listed, never hidden.
 """
@@ -82,10 +84,17 @@ def cell(label: str, env: str, runs: list[Run], problems: int) -> dict:
         "finals": [float(v) for v in finals],
         "code_versions": sorted({(r.record.get("provenance") or {}).get("code_version") or "?"
                                  for r in runs}),
+        "agent_settings": _settings(runs),
         "per_seed": [{"seed": r.seed, "final": float(f), "last3": float(k),
                       "first_step_at_threshold": c, "wall_s": r.record.get("wall_s")}
                      for r, f, k, c in zip(runs, finals, last3, crossings, strict=True)],
     }
+
+
+def _settings(runs: list[Run]) -> dict | None:
+    """The agent section the runs share; None if they differ (a card cell of mixed settings)."""
+    first = runs[0].config.get("agent")
+    return first if all(r.config.get("agent") == first for r in runs) else None
 
 
 def make_card(folder: Path) -> dict:
