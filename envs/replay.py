@@ -18,13 +18,13 @@ steps per env, once per resume.
 from __future__ import annotations
 
 import copy
-import io
 from collections.abc import Callable
 from typing import Any
 
 import gymnasium as gym
 import numpy as np
 import torch
+from seedsweep.envs.fidelity import carries_on_alike
 
 
 class ReplayError(RuntimeError):
@@ -83,37 +83,5 @@ def replay(env: EpisodeLog, log: dict[str, Any]) -> np.ndarray:
 
 
 def replays_faithfully(make_env: Callable[[], gym.Env], steps: int = 30) -> bool:
-    """Whether an env rebuilt by :func:`replay` carries on exactly like the original.
-
-    Checked on throwaway envs with seeded random actions, across episode ends, after the log
-    went through the same ``torch.save``/``torch.load(weights_only=True)`` as a checkpoint.
-    """
-    original, copy_ = EpisodeLog(make_env()), EpisodeLog(make_env())
-    try:
-        original.reset(seed=12345)
-        original.action_space.seed(12345)
-        actions = [original.action_space.sample() for _ in range(3 * steps)]
-        for a in actions[:steps]:
-            if any(original.step(a)[2:4]):
-                original.reset()
-        original.reset()  # the logged episode begins from the generator, as after an autoreset
-        for a in actions[steps:2 * steps]:
-            if any(original.step(a)[2:4]):
-                original.reset()
-        buf = io.BytesIO()
-        torch.save(original.state_dict(), buf)
-        buf.seek(0)
-        replay(copy_, torch.load(buf, weights_only=True))
-        for a in actions[2 * steps:]:
-            ours, theirs = original.step(a), copy_.step(a)
-            if not (np.array_equal(ours[0], theirs[0]) and ours[1:4] == theirs[1:4]):
-                return False
-            if any(ours[2:4]):
-                if not np.array_equal(original.reset()[0], copy_.reset()[0]):
-                    return False
-        return True
-    except Exception:  # an env that cannot be reset or stepped like this
-        return False
-    finally:
-        original.close()
-        copy_.close()
+    """Whether an env rebuilt by :func:`replay` carries on exactly like the original."""
+    return carries_on_alike(lambda: EpisodeLog(make_env()), EpisodeLog.state_dict, replay, steps)

@@ -18,7 +18,6 @@ on it (box2d envs, for instance, keep their bodies in C objects and fail it).
 from __future__ import annotations
 
 import collections
-import io
 import types
 from collections.abc import Callable
 from typing import Any
@@ -27,6 +26,7 @@ import gymnasium as gym
 import numpy as np
 import torch
 from gymnasium.envs.registration import EnvSpec
+from seedsweep.envs.fidelity import carries_on_alike
 
 MARK = "@"  # key of every encoded node; user dicts are encoded as item lists, never bare
 MAX_DEPTH = 16  # a wrapper chain plus the objects an env holds; deeper graphs are not state
@@ -198,36 +198,9 @@ def _restore_object(obj: Any, state: Any, where: str, depth: int) -> None:
 
 # -- is it enough? -------------------------------------------------------------------------
 def restores_faithfully(make_env: Callable[[], gym.Env], steps: int = 30) -> bool:
-    """Whether a fresh env restored from a snapshot carries on exactly like the original.
+    """Whether a fresh env restored from a snapshot carries on exactly like the original."""
+    def load(env: gym.Env, state: Any) -> None:
+        env.reset(seed=0)  # makes the lazily created attributes, then overwritten
+        restore(env, state)
 
-    Checked on throwaway envs with seeded random actions, across episode ends, after the
-    snapshot went through the same ``torch.save``/``torch.load(weights_only=True)`` as a
-    checkpoint.
-    """
-    original = make_env()
-    copy_ = make_env()
-    try:
-        original.reset(seed=12345)
-        original.action_space.seed(12345)
-        actions = [original.action_space.sample() for _ in range(2 * steps)]
-        for a in actions[:steps]:
-            if any(original.step(a)[2:4]):
-                original.reset()
-        buf = io.BytesIO()
-        torch.save(capture(original), buf)
-        buf.seek(0)
-        copy_.reset(seed=0)
-        restore(copy_, torch.load(buf, weights_only=True))
-        for a in actions[steps:]:
-            ours, theirs = original.step(a), copy_.step(a)
-            if not (np.array_equal(ours[0], theirs[0]) and ours[1:4] == theirs[1:4]):
-                return False
-            if any(ours[2:4]):
-                if not np.array_equal(original.reset()[0], copy_.reset()[0]):
-                    return False
-        return True
-    except Exception:  # an env whose state is not plain data, or that fails after it
-        return False
-    finally:
-        original.close()
-        copy_.close()
+    return carries_on_alike(make_env, capture, load, steps)
