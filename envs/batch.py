@@ -16,7 +16,6 @@ and later as ``Step.obs``, so a write into it would silently change what it lear
 
 from __future__ import annotations
 
-import copy
 from collections.abc import Callable
 from typing import Any
 
@@ -26,7 +25,14 @@ import torch
 from gymnasium.vector import AsyncVectorEnv, AutoresetMode, SyncVectorEnv
 from seedsweep.envs import snapshot
 from seedsweep.envs.normalize import ObsNormalizer
-from seedsweep.envs.replay import EpisodeLog, ReplayError, replay, replays_faithfully
+from seedsweep.envs.replay import (
+    EpisodeLog,
+    ReplayError,
+    generator_state,
+    replay,
+    replays_faithfully,
+    reset_from,
+)
 
 RewardTransform = tuple[str, dict[str, Any]]
 
@@ -60,9 +66,8 @@ class TrainEnvs:
             self.single_observation_space = probe.observation_space
             self.single_action_space = probe.action_space
         else:
-            cls = AsyncVectorEnv if vector_mode == "async" else SyncVectorEnv
             self._single = None
-            self._vector = cls([make_env] * num_envs, autoreset_mode=AutoresetMode.SAME_STEP)
+            self._vector = _vector_env(make_env, num_envs, vector_mode)
             self.single_observation_space = self._vector.single_observation_space
             self.single_action_space = self._vector.single_action_space
         if normalizer is not None:
@@ -116,7 +121,7 @@ class TrainEnvs:
                 self._return1 = 0.0
                 self._length1 = 0
                 if self.track_resets:
-                    self.reset_rng_state = _rng_state(self._single)
+                    self.reset_rng_state = generator_state(self._single)
                 reset_obs, _ = self._single.reset()
                 obs = np.asarray(reset_obs)[None]
                 obs.setflags(write=False)
@@ -191,8 +196,7 @@ class TrainEnvs:
             return "none"
         self._vector.close()  # rebuilt with every env's episode logged
         make_env = self._make_env
-        self._vector = SyncVectorEnv([lambda: EpisodeLog(make_env())] * self.num_envs,
-                                     autoreset_mode=AutoresetMode.SAME_STEP)
+        self._vector = _vector_env(lambda: EpisodeLog(make_env()), self.num_envs, "sync")
         return "replay"
 
     def state_dict(self, kind: str) -> dict[str, Any]:
@@ -246,10 +250,7 @@ class TrainEnvs:
                     raise ReplayError(f"env {i}'s replayed episode did not end at the saved "
                                       "observation")
         elif state["kind"] == "reset":
-            env = self._single
-            env.reset(seed=0)  # creates the RNG, then it is overwritten
-            env.unwrapped.np_random.bit_generator.state = state["reset_rng"]
-            obs, _ = env.reset()
+            obs = reset_from(self._single, state["reset_rng"])
             if not np.array_equal(np.asarray(obs)[None], raw):
                 raise RuntimeError("the env's reset did not reproduce the saved observation")
         else:
@@ -271,5 +272,6 @@ def _frozen(a: np.ndarray) -> np.ndarray:
     return a
 
 
-def _rng_state(env: gym.Env) -> dict:
-    return copy.deepcopy(env.unwrapped.np_random.bit_generator.state)
+def _vector_env(make_env: Callable[[], gym.Env], num_envs: int, vector_mode: str):
+    cls = AsyncVectorEnv if vector_mode == "async" else SyncVectorEnv
+    return cls([make_env] * num_envs, autoreset_mode=AutoresetMode.SAME_STEP)

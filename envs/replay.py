@@ -31,6 +31,18 @@ class ReplayError(RuntimeError):
     """A log that cannot be replayed, or whose replay did not end where the log says."""
 
 
+def generator_state(env: gym.Env) -> dict[str, Any]:
+    """The env's generator state as data (taken just before an unseeded reset)."""
+    return copy.deepcopy(env.unwrapped.np_random.bit_generator.state)
+
+
+def reset_from(env: gym.Env, state: dict[str, Any]) -> Any:
+    """Reset a fresh env as its original was reset from generator ``state``; the observation."""
+    env.reset(seed=0)  # creates the generator, whose state is then overwritten
+    env.unwrapped.np_random.bit_generator.state = state
+    return env.reset()[0]
+
+
 class EpisodeLog(gym.Wrapper):
     """Records how the current episode began and the actions taken since (outermost wrapper,
     so the actions are the agent's own, before any action wrapper)."""
@@ -46,7 +58,7 @@ class EpisodeLog(gym.Wrapper):
         elif seed is not None:
             self.began = {"seed": int(seed)}
         else:
-            self.began = {"rng": copy.deepcopy(self.env.unwrapped.np_random.bit_generator.state)}
+            self.began = {"rng": generator_state(self.env)}
         self.actions = []
         return self.env.reset(seed=seed, options=options)
 
@@ -69,9 +81,7 @@ def replay(env: EpisodeLog, log: dict[str, Any]) -> np.ndarray:
     if "seed" in began:
         obs, _ = env.reset(seed=int(began["seed"]))
     elif "rng" in began:
-        env.reset(seed=0)  # creates the generator, whose state is then overwritten
-        env.unwrapped.np_random.bit_generator.state = began["rng"]
-        obs, _ = env.reset()
+        obs = reset_from(env, began["rng"])
     else:
         raise ReplayError(f"an episode log begins with {sorted(began)}, not 'seed' or 'rng'")
     for i, action in enumerate(actions):

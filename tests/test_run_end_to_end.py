@@ -9,6 +9,7 @@ import torch
 import yaml
 from seedsweep.runner.commands.main import main
 from seedsweep.runner.launch.api import run
+from seedsweep.runner.launch.plan import plan
 
 SHORT = ["agent=dqn", "env=cartpole", "steps=1500", "eval.every=500", "eval.episodes=3",
          "agent.replay_warmup_steps=200", "log.every=250", "--progress=quiet"]
@@ -62,6 +63,23 @@ def test_train_and_scalar_logs(run_dir):
     scalars = list(csv.DictReader((run_dir / "scalars.csv").open()))
     keys = {r["key"] for r in scalars}
     assert {"loss", "epsilon", "steps_per_s"} <= keys
+
+
+AGENT_CONFIGS = Path(__file__).resolve().parent.parent / "configs" / "agent"
+PER_ENV = [(path.stem, env, values)
+           for path in sorted(AGENT_CONFIGS.glob("*.yaml"))
+           for env, values in (yaml.safe_load(path.read_text()).get("per_env") or {}).items()]
+
+
+@pytest.mark.parametrize("agent,env,values", PER_ENV, ids=[f"{a}-{e}" for a, e, _ in PER_ENV])
+def test_every_shipped_per_env_setting_reaches_the_run_config(agent, env, values, tmp_path):
+    """A per-env entry under a misspelt env name would never apply: each one must name a
+    shipped env config and show up in the resolved config of a run on that env."""
+    assert (AGENT_CONFIGS.parent / "env" / f"{env}.yaml").is_file(), env
+    (planned,) = plan([f"agent={agent}", f"env={env}", f"results_dir={tmp_path}"])
+    resolved = planned.config["agent"]
+    assert {k: resolved[k] for k in values} == values
+    assert "per_env" not in resolved
 
 
 def test_config_checkpoint_and_tensorboard(run_dir):
