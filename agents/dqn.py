@@ -2,7 +2,10 @@
 
 Replay buffer, target network (hard copies every ``target_period_steps`` env steps, or
 Polyak averaging), linear ε-greedy, Huber loss, Adam, gradient-norm clipping; Double DQN
-targets (van Hasselt et al. 2016) with ``double_q: true``. With ``lr_decay_steps`` set, the
+targets (van Hasselt et al. 2016) with ``double_q: true``. With ``bootstrap_steps`` n > 1 the
+targets are n-step returns (Sutton 1988; in DQN as in Hessel et al. 2018): n rewards summed
+with discounting, then the target network's value of the state n steps on, times gamma^n;
+fewer steps where the episode ended sooner. With ``lr_decay_steps`` set, the
 learning rate falls linearly from ``lr`` to ``lr_end`` over that many env steps. Only the
 terminated flag stops bootstrapping: a time-limit truncation still bootstraps from the final
 observation.
@@ -19,7 +22,7 @@ from gymnasium import spaces
 from seedsweep.agents.base import Agent, Step, require
 from seedsweep.agents.common.networks import NumpyMLP, flat_dim, mlp, mlp_bytes
 from seedsweep.agents.common.optim import FlatParameters
-from seedsweep.agents.common.replay import ReplayBuffer
+from seedsweep.agents.common.replay import MultiStepFolder, ReplayBuffer
 from seedsweep.agents.common.rng import generator_states, load_generator_states, make_generators
 from seedsweep.agents.common.schedules import LinearSchedule
 
@@ -45,6 +48,7 @@ class DQN(Agent):
         epsilon_decay_steps: int = 10_000
         double_q: bool = True
         grad_clip_norm: float | None = 10.0
+        bootstrap_steps: int = 1
         num_envs: int = 1
 
         def __post_init__(self):
@@ -71,6 +75,7 @@ class DQN(Agent):
                     self.epsilon_decay_steps >= 0, ">= 0")
             require("grad_clip_norm", self.grad_clip_norm,
                     self.grad_clip_norm is None or self.grad_clip_norm > 0, "null or > 0")
+            require("bootstrap_steps", self.bootstrap_steps, self.bootstrap_steps >= 1, ">= 1")
             require("num_envs", self.num_envs, self.num_envs >= 1, ">= 1")
 
     def __init__(self, observation_space, action_space, config: Config, seed: int):
@@ -88,7 +93,10 @@ class DQN(Agent):
         self.target_numpy = NumpyMLP(self.target)
         self.opt = self.flat.adam(c.lr)
         self._grads = self.q_numpy.grad_views(self.q)  # views into self.flat.grad
-        self.buffer = ReplayBuffer(c.replay_capacity, (self.obs_dim,))
+        multi_step = c.bootstrap_steps > 1
+        self.buffer = ReplayBuffer(c.replay_capacity, (self.obs_dim,), discounts=multi_step)
+        self.folder = (MultiStepFolder(c.bootstrap_steps, c.gamma, c.num_envs, self.obs_dim)
+                       if multi_step else None)
         self.epsilon = LinearSchedule(c.epsilon_start, c.epsilon_end, c.epsilon_decay_steps)
         self.lr_schedule = (None if c.lr_decay_steps is None
                             else LinearSchedule(c.lr, c.lr_end, c.lr_decay_steps))
@@ -102,7 +110,8 @@ class DQN(Agent):
         obs_dim = flat_dim(observation_space)
         n = int(action_space.n)
         # q and target networks, flat parameters, gradients and Adam's two moments
-        return {"replay_capacity": ReplayBuffer.nbytes(config.replay_capacity, (obs_dim,)),
+        return {"replay_capacity": ReplayBuffer.nbytes(config.replay_capacity, (obs_dim,),
+                                                       discounts=config.bootstrap_steps > 1),
                 "hidden": mlp_bytes(obs_dim, config.hidden, n, copies=6)}
 
     # -- acting --------------------------------------------------------------------------
@@ -122,11 +131,16 @@ class DQN(Agent):
     # -- learning ------------------------------------------------------------------------
     def observe(self, step: Step) -> dict[str, float]:
         n = len(step.rewards)
-        self.buffer.add(step.obs.reshape(n, -1), step.actions, step.rewards,
-                        step.next_obs.reshape(n, -1), step.terminated)
+        if self.folder is None:
+            self.buffer.add(step.obs.reshape(n, -1), step.actions, step.rewards,
+                            step.next_obs.reshape(n, -1), step.terminated)
+        else:
+            self.buffer.add(*self.folder.push(step.obs.reshape(n, -1), step.actions,
+                                              step.rewards, step.next_obs.reshape(n, -1),
+                                              step.terminated, step.truncated))
         self.env_steps = step.env_steps
         c = self.config
-        if self.env_steps < c.replay_warmup_steps:
+        if self.env_steps < c.replay_warmup_steps or len(self.buffer) == 0:
             return {}
         self._train_credit += n
         metrics: dict[str, float] = {}
@@ -153,7 +167,8 @@ class DQN(Agent):
         else:
             best = next_target.argmax(axis=1)
         next_value = next_target[np.arange(len(best)), best]
-        target = b["rewards"] + np.float32(c.gamma) * (1.0 - b["terminated"]) * next_value
+        discount = b["discounts"] if self.folder is not None else np.float32(c.gamma)
+        target = b["rewards"] + discount * (1.0 - b["terminated"]) * next_value
         # Huber loss (smooth L1, beta 1, mean over the batch) and its gradient, back-propagated
         # by hand through the MLP into the flat gradient; then torch's fused Adam.
         q, inputs = self.q_numpy.forward_train(b["obs"])
@@ -177,7 +192,7 @@ class DQN(Agent):
 
     # -- state ---------------------------------------------------------------------------
     def state_dict(self) -> dict[str, Any]:
-        return {
+        state = {
             "q": self.q.state_dict(),
             "target": self.target.state_dict(),
             "optimizer": self.opt.state_dict(),
@@ -190,12 +205,17 @@ class DQN(Agent):
                 "last_target_copy": self._last_target_copy,
             },
         }
+        if self.folder is not None:
+            state["pending"] = self.folder.state_dict()
+        return state
 
     def load_state_dict(self, state: dict[str, Any]) -> None:
         self.q.load_state_dict(state["q"])
         self.target.load_state_dict(state["target"])
         self.opt.load_state_dict(state["optimizer"])
         self.buffer.load_state_dict(state["buffer"])
+        if self.folder is not None:
+            self.folder.load_state_dict(state["pending"])
         load_generator_states(state["rng"], self.rng, self.gen)
         k = state["counters"]
         self.env_steps = int(k["env_steps"])

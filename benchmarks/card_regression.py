@@ -17,13 +17,17 @@ seeds against 10 card seeds the test can reject (smallest two-sided p = 2 / C(13
 Before anything runs, each cell's agent settings as shipped now (``per_env`` applied) are
 compared with those the card recorded: a cell whose settings moved on since the card is not
 run but listed with the keys that differ ("settings changed"), since its card no longer
-describes the shipped agent; check it against the newer card that has it. Cards written
-before settings were recorded are run and marked "settings not on the card".
+describes the shipped agent; check it against the newer card that has it. An option the
+card does not record (added to the agent later) counts as unchanged while it is shipped at
+its dataclass default, since new options are added so that their default keeps the old
+behaviour. Cards written before settings were recorded are run and marked "settings not on
+the card".
 """
 
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import json
 import subprocess
 import sys
@@ -34,6 +38,7 @@ from seedsweep.runner.analysis import scores
 from seedsweep.runner.analysis.permutation import stratified_permutation_test
 from seedsweep.runner.analysis.runs import load_sweep
 from seedsweep.runner.analysis.stats import interquartile_mean
+from seedsweep.runner.execution.prepare import load_agent_class
 from seedsweep.runner.launch.plan import plan
 
 
@@ -52,8 +57,16 @@ def settings_change(c: dict, seeds: list[int], results_dir: Path) -> list[str] |
         return None
     now = plan(_overrides(c, seeds, "settings-check", results_dir), multirun=True)[0]
     shipped = now.config["agent"]
+    defaults = _config_defaults(shipped["entry"])
     return [f"{k}: {recorded.get(k)!r} -> {shipped.get(k)!r}"
-            for k in sorted(set(recorded) | set(shipped)) if recorded.get(k) != shipped.get(k)]
+            for k in sorted(set(recorded) | set(shipped))
+            if recorded.get(k) != shipped.get(k)
+            and not (k not in recorded and k in defaults and shipped.get(k) == defaults[k])]
+
+
+def _config_defaults(entry: str) -> dict:
+    """The agent's hyperparameter defaults, from its ``Config`` dataclass."""
+    return dataclasses.asdict(load_agent_class(entry).Config())
 
 
 def run_cells(cells: list[dict], card: str, seeds: list[int], results_dir: Path,

@@ -62,6 +62,16 @@ def test_dqn_passes_on_discrete_envs_and_skips_pendulum(capsys):
     assert lines[("pendulum", "refuses")][0] == "PASS"  # building it anyway raises
 
 
+def test_dqn_with_n_step_targets_passes_the_round_trip_and_determinism(capsys):
+    """Pending n-step transitions live in the agent between steps; the round trip saves at
+    episode ends and mid-episode, so a queue missing from state_dict fails here."""
+    code, lines = run(capsys, "dqn", "env=cartpole", FAST, "agent.bootstrap_steps=3",
+                      "agent.replay_warmup_steps=50", "agent.batch_size=16")
+    assert code == 0, lines
+    for check in ("determinism", "round_trip", "learn_loop"):
+        assert lines[("cartpole", check)][0] == "PASS", (check, lines[("cartpole", check)])
+
+
 def test_random_passes_on_the_default_suite(capsys):
     code, lines = run(capsys, "random", FAST)
     assert code == 0, lines
