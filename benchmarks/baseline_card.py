@@ -4,7 +4,7 @@ A card sweep is a plan of the tool itself (``configs/plan/card_*.yaml``: every s
 on a suite, at the suite's budgets, 5-10 seeds); run it with ``seedsweep run --plan
 card_classic`` (it resumes), then turn the finished folder into a card::
 
-    .venv/bin/python benchmarks/baseline_card.py results/card_classic-v2
+    .venv/bin/python benchmarks/baseline_card.py results/card_classic-v3
 
 For every agent x env it writes a row to ``benchmarks/cards/<folder>.csv`` and the same, with
 per-seed values and curves' first threshold crossings, to ``benchmarks/cards/<folder>.json``
