@@ -56,6 +56,17 @@ def test_replay_sample_depends_only_on_rng_and_state_round_trips():
         np.testing.assert_array_equal(a[k], c[k])
 
 
+@pytest.mark.parametrize("discounts", [False, True])
+def test_replay_nbytes_is_what_the_arrays_hold(discounts):
+    """The memory estimate equals numpy's own ``nbytes`` of the allocated arrays."""
+    buf = ReplayBuffer(capacity=1000, obs_shape=(8,), discounts=discounts)
+    held = sum(getattr(buf, name).nbytes for name in buf.fields)
+    assert ReplayBuffer.nbytes(1000, (8,), discounts=discounts) == held
+    with pytest.raises(ValueError, match="discounts"):  # each buffer takes only its own kind
+        buf.add(np.zeros((1, 8), np.float32), np.zeros(1, np.int64), np.zeros(1),
+                np.zeros((1, 8), np.float32), np.zeros(1), None if discounts else np.ones(1))
+
+
 def test_replay_rejects_capacity_mismatch():
     buf = ReplayBuffer(capacity=10, obs_shape=(1,))
     with pytest.raises(ValueError, match="capacity"):
