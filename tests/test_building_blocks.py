@@ -2,7 +2,6 @@
 
 import copy
 import dataclasses
-import io
 from pathlib import Path
 
 import numpy as np
@@ -16,6 +15,7 @@ from seedsweep.agents.common.optim import FlatParameters
 from seedsweep.agents.common.replay import MultiStepFolder, ReplayBuffer
 from seedsweep.agents.common.schedules import LinearSchedule
 from seedsweep.agents.dqn import DQN
+from seedsweep.runner.agent_check.inspect import roundtrip_bytes
 
 
 def test_replay_ring_overwrites_oldest_first():
@@ -312,11 +312,8 @@ def test_dqn_multi_step_state_round_trips_mid_episode():
     for t in range(1, 12):
         a.observe(step(t))
     assert a.folder.count.sum() > 0  # something pending at the save
-    buffer = io.BytesIO()
-    torch.save(a.state_dict(), buffer)
-    buffer.seek(0)
     b = DQN(obs_space, act_space, config, seed=1)
-    b.load_state_dict(torch.load(buffer, weights_only=True))  # as checkpoints are read
+    b.load_state_dict(roundtrip_bytes(a.state_dict())[0])  # saved and read as a checkpoint
     for t in range(12, 30):
         s = step(t)
         a.observe(s)

@@ -127,57 +127,47 @@ class MultiStepFolder:
         if horizon < 1:
             raise ValueError(f"horizon must be >= 1, got {horizon}")
         self.horizon = int(horizon)
-        self.gamma = float(gamma)
         self.obs = np.zeros((num_envs, horizon, obs_dim), dtype=np.float32)
         self.actions = np.zeros((num_envs, horizon), dtype=np.int64)
         self.rewards = np.zeros((num_envs, horizon), dtype=np.float64)
         self.count = np.zeros(num_envs, dtype=np.int64)
-        self.powers = self.gamma ** np.arange(horizon + 1)
+        self.powers = float(gamma) ** np.arange(horizon + 1)
+        # what one push can give out (every env ending with a full queue), filled in place
+        most = num_envs * horizon
+        self._out = (np.empty((most, obs_dim), np.float32), np.empty(most, np.int64),
+                     np.empty(most, np.float64), np.empty((most, obs_dim), np.float32),
+                     np.empty(most, np.float32), np.empty(most, np.float64))
 
     def push(self, obs, actions, rewards, next_obs, terminated, truncated
              ) -> tuple[np.ndarray, ...]:
         """Add one step of every env; returns the finished transitions as
-        ``(obs, actions, returns, next_obs, terminated, discounts)``, possibly empty."""
-        out: list[tuple[int, int, int]] = []  # (env, first pending index, steps to the end)
+        ``(obs, actions, returns, next_obs, terminated, discounts)``, possibly empty. The
+        arrays are views, overwritten by the next push: use or copy them before it."""
+        o, a, g, o2, term, disc = self._out
+        m = 0
         for e in range(len(rewards)):
             k = int(self.count[e])
             self.obs[e, k] = obs[e]
             self.actions[e, k] = actions[e]
             self.rewards[e, k] = rewards[e]
             k += 1
-            if terminated[e] or truncated[e]:
-                out.extend((e, j, k - j) for j in range(k))
-            elif k == self.horizon:
-                out.append((e, 0, k))
-            self.count[e] = k
-        result = self._collect(out, next_obs, terminated)
-        for e in range(len(rewards)):  # drop what was given out
-            k = int(self.count[e])
-            if terminated[e] or truncated[e]:
-                self.count[e] = 0
-            elif k == self.horizon:
+            ended = bool(terminated[e] or truncated[e])
+            for j in range(k if ended else int(k == self.horizon)):
+                steps = k - j  # rewards from pending step j to this one
+                o[m], a[m] = self.obs[e, j], self.actions[e, j]
+                o2[m], term[m] = next_obs[e], terminated[e]
+                g[m] = float(np.dot(self.powers[:steps], self.rewards[e, j:k]))
+                disc[m] = self.powers[steps]
+                m += 1
+            if ended:
+                k = 0
+            elif k == self.horizon:  # its oldest step was given out: drop it
                 self.obs[e, :-1] = self.obs[e, 1:]
                 self.actions[e, :-1] = self.actions[e, 1:]
                 self.rewards[e, :-1] = self.rewards[e, 1:]
-                self.count[e] = k - 1
-        return result
-
-    def _collect(self, out, next_obs, terminated) -> tuple[np.ndarray, ...]:
-        m = len(out)
-        obs = np.empty((m, self.obs.shape[2]), dtype=np.float32)
-        actions = np.empty(m, dtype=np.int64)
-        returns = np.empty(m, dtype=np.float64)
-        nxt = np.empty((m, self.obs.shape[2]), dtype=np.float32)
-        term = np.empty(m, dtype=np.float32)
-        discounts = np.empty(m, dtype=np.float64)
-        for i, (e, j, steps) in enumerate(out):
-            obs[i] = self.obs[e, j]
-            actions[i] = self.actions[e, j]
-            returns[i] = float(np.dot(self.powers[:steps], self.rewards[e, j:j + steps]))
-            nxt[i] = next_obs[e]
-            term[i] = terminated[e]
-            discounts[i] = self.powers[steps]
-        return obs, actions, returns, nxt, term, discounts
+                k -= 1
+            self.count[e] = k
+        return o[:m], a[:m], g[:m], o2[:m], term[:m], disc[:m]
 
     def state_dict(self) -> dict[str, Any]:
         return {name: torch.from_numpy(getattr(self, name).copy())
